@@ -1,0 +1,85 @@
+"""Checkpoints: model args + weights (+ optional training state), written atomically.
+
+Loaded with torch.load(weights_only=True): a checkpoint cannot run code.
+"""
+from __future__ import annotations
+
+import os
+import tempfile
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import torch
+from torch import nn
+
+from .registry import family_of, rebuild
+
+CHECKPOINT_FORMAT = 1
+
+
+class CheckpointError(Exception):
+    pass
+
+
+@dataclass
+class Checkpoint:
+    family: str
+    model_args: dict
+    state_dict: dict[str, torch.Tensor]
+    meta: dict[str, Any] = field(default_factory=dict)  # style, loss network, data hashes, config
+    train_state: dict[str, Any] = field(default_factory=dict)  # step, optimizer, rng
+
+    def model(self) -> nn.Module:
+        net = rebuild(self.family, self.model_args)
+        net.load_state_dict(self.state_dict)
+        return net.eval()
+
+
+def from_model(model: nn.Module, meta: dict | None = None,
+               train_state: dict | None = None) -> Checkpoint:
+    return Checkpoint(family_of(model), dict(model.model_args),
+                      {k: v.detach().clone() for k, v in model.state_dict().items()},
+                      dict(meta or {}), dict(train_state or {}))
+
+
+def atomic_write_bytes(path: Path, write: Any) -> None:
+    """Call write(file_object) on a temp file in the same folder, fsync, rename over path."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    try:
+        with os.fdopen(fd, "wb") as f:
+            write(f)
+            f.flush()
+            os.fsync(f.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise
+
+
+def save(ckpt: Checkpoint, path: Path) -> None:
+    blob = {"limner_checkpoint": CHECKPOINT_FORMAT, "family": ckpt.family,
+            "model_args": ckpt.model_args, "state_dict": ckpt.state_dict,
+            "meta": ckpt.meta, "train_state": ckpt.train_state}
+    atomic_write_bytes(Path(path), lambda f: torch.save(blob, f))
+
+
+def load(path: Path) -> Checkpoint:
+    path = Path(path)
+    if not path.is_file():
+        raise CheckpointError(f"{path}: no such checkpoint file")
+    try:
+        blob = torch.load(path, map_location="cpu", weights_only=True)
+    except Exception as e:  # truncated, foreign or code-carrying pickles
+        first = str(e).strip().splitlines()[0] if str(e).strip() else type(e).__name__
+        raise CheckpointError(f"{path}: not a readable Limner checkpoint ({first})") from None
+    if not isinstance(blob, dict) or "limner_checkpoint" not in blob:
+        raise CheckpointError(f"{path}: not a Limner checkpoint (no 'limner_checkpoint' key)")
+    if blob["limner_checkpoint"] > CHECKPOINT_FORMAT:
+        raise CheckpointError(f"{path}: checkpoint format {blob['limner_checkpoint']} is newer "
+                              f"than this Limner reads ({CHECKPOINT_FORMAT}); upgrade Limner")
+    return Checkpoint(blob["family"], blob["model_args"], blob["state_dict"],
+                      blob.get("meta", {}), blob.get("train_state", {}))

@@ -1,0 +1,158 @@
+"""Content sets for training, distillation and calibration.
+
+`--content PATH...` accepts folders of images (recursive), single images, video files
+(frames sampled evenly) and `scenes:N` (N procedurally generated scenes, see
+limner.runtime.scenes). Unreadable files are skipped and counted. Every item keeps
+the sha256 of its source file so later stages can refuse overlap between sets.
+"""
+from __future__ import annotations
+
+import hashlib
+from dataclasses import dataclass
+from pathlib import Path
+
+import cv2
+import numpy as np
+
+from limner.runtime.scenes import scene
+
+IMAGE_EXTS = {".jpg", ".jpeg", ".png", ".bmp", ".tif", ".tiff", ".webp"}
+VIDEO_EXTS = {".mp4", ".avi", ".mov", ".mkv", ".webm", ".m4v"}
+
+
+class ContentError(ValueError):
+    pass
+
+
+@dataclass
+class ContentItem:
+    image: np.ndarray  # (H, W, 3) uint8 BGR
+    source: str        # file path (with #frame for video) or scenes:seed
+    sha256: str        # of the source file (video: of the video file)
+
+
+@dataclass
+class ContentSet:
+    items: list[ContentItem]
+    skipped: list[str]
+
+    def hashes(self) -> list[str]:
+        return sorted({i.sha256 for i in self.items})
+
+    def sources(self) -> list[str]:
+        return sorted({i.source.split("#")[0] for i in self.items})
+
+
+def file_sha256(path: Path) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as f:
+        for chunk in iter(lambda: f.read(1 << 20), b""):
+            h.update(chunk)
+    return h.hexdigest()
+
+
+def _video_frames(path: Path, frames_per_video: int) -> list[np.ndarray]:
+    cap = cv2.VideoCapture(str(path))
+    try:
+        if not cap.isOpened():
+            return []
+        total = int(cap.get(cv2.CAP_PROP_FRAME_COUNT))
+        out = []
+        if total > 0:
+            for idx in np.linspace(0, total - 1, min(frames_per_video, total)).astype(int):
+                cap.set(cv2.CAP_PROP_POS_FRAMES, int(idx))
+                ok, f = cap.read()
+                if ok and f is not None:
+                    out.append(f)
+        return out
+    finally:
+        cap.release()
+
+
+def _expand(spec: str) -> list[Path]:
+    p = Path(spec)
+    if p.is_dir():
+        return sorted(f for f in p.rglob("*") if f.is_file() and f.suffix.lower() in IMAGE_EXTS | VIDEO_EXTS)
+    if p.is_file():
+        return [p]
+    raise ContentError(f"{spec}: no such file or folder")
+
+
+def load_content(specs: list[str], *, min_items: int = 1, min_side: int = 64,
+                 frames_per_video: int = 50, max_side: int = 1024) -> ContentSet:
+    """Read every spec; images larger than max_side are downscaled (keeps memory bounded)."""
+    if not specs:
+        raise ContentError("no content given: pass --content with image folders, images or videos")
+    items: list[ContentItem] = []
+    skipped: list[str] = []
+    for spec in specs:
+        if spec.startswith("scenes:"):
+            try:
+                n = int(spec.split(":", 1)[1])
+            except ValueError:
+                raise ContentError(f"{spec}: expected scenes:N with N a count") from None
+            for seed in range(n):
+                img = scene(seed, 512, 384)
+                items.append(ContentItem(img, f"scenes:{seed}",
+                                         hashlib.sha256(f"limner-scene:{seed}".encode()).hexdigest()))
+            continue
+        for f in _expand(spec):
+            ext = f.suffix.lower()
+            if ext in VIDEO_EXTS:
+                frames = _video_frames(f, frames_per_video)
+                if not frames:
+                    skipped.append(str(f))
+                    continue
+                sha = file_sha256(f)
+                items += [ContentItem(_fit(fr, max_side), f"{f}#{i}", sha) for i, fr in enumerate(frames)]
+                continue
+            img = cv2.imread(str(f), cv2.IMREAD_COLOR)
+            if img is None:
+                skipped.append(str(f))
+                continue
+            items.append(ContentItem(_fit(img, max_side), str(f), file_sha256(f)))
+    small = [i.source for i in items if min(i.image.shape[:2]) < min_side]
+    items = [i for i in items if min(i.image.shape[:2]) >= min_side]
+    skipped += small
+    if len(items) < min_items:
+        raise ContentError(f"content set has {len(items)} usable image(s) (need at least {min_items}; "
+                           f"{len(skipped)} skipped as unreadable or smaller than {min_side} px)")
+    return ContentSet(items, skipped)
+
+
+def _fit(img: np.ndarray, max_side: int) -> np.ndarray:
+    h, w = img.shape[:2]
+    s = max(h, w)
+    if s <= max_side:
+        return img
+    k = max_side / s
+    return cv2.resize(img, (round(w * k), round(h * k)), interpolation=cv2.INTER_AREA)
+
+
+def sample_batch(cs: ContentSet, rng: np.random.Generator, batch: int, size: int,
+                 jitter: bool = True) -> np.ndarray:
+    """Random crops (scale jitter, flips, mild colour jitter) -> (B, size, size, 3) uint8 RGB."""
+    out = np.empty((batch, size, size, 3), np.uint8)
+    for b in range(batch):
+        img = cs.items[int(rng.integers(len(cs.items)))].image
+        h, w = img.shape[:2]
+        # crop side between size and the short side (scale jitter), then resize to `size`
+        short = min(h, w)
+        lo = min(size, short)
+        side = int(rng.integers(lo, max(lo, int(short * 0.9)) + 1)) if jitter else lo
+        y = int(rng.integers(0, h - side + 1))
+        x = int(rng.integers(0, w - side + 1))
+        crop = img[y:y + side, x:x + side]
+        crop = cv2.resize(crop, (size, size), interpolation=cv2.INTER_AREA if side > size else cv2.INTER_LINEAR)
+        if jitter:
+            if rng.random() < 0.5:
+                crop = crop[:, ::-1]
+            f = crop.astype(np.float32)
+            gain = rng.uniform(0.85, 1.15)          # brightness / contrast
+            bias = rng.uniform(-12, 12)
+            grey = f.mean(axis=2, keepdims=True)
+            sat = rng.uniform(0.8, 1.2)             # saturation
+            f = (grey + (f - grey) * sat) * gain + bias
+            crop = np.clip(f, 0, 255).astype(np.uint8)
+        out[b] = crop[:, :, ::-1]  # BGR -> RGB
+    return out

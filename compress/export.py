@@ -1,0 +1,54 @@
+"""`limner export CHECKPOINT -o FILE.onnx`: a checkpoint -> a self-contained model file."""
+from __future__ import annotations
+
+import hashlib
+from pathlib import Path
+
+import onnx
+from torch import nn
+
+from limner.runtime.metadata import ModelMeta
+
+from . import checkpoint as ckptmod
+from .checkpoint import atomic_write_bytes
+from .onnx_writer import to_onnx
+
+
+def file_sha256(path: Path) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as f:
+        for chunk in iter(lambda: f.read(1 << 20), b""):
+            h.update(chunk)
+    return h.hexdigest()
+
+
+def save_onnx(model: onnx.ModelProto, out: Path) -> Path:
+    out = Path(out)
+    data = model.SerializeToString()
+    atomic_write_bytes(out, lambda f: f.write(data))
+    return out
+
+
+def export_model(net: nn.Module, meta: ModelMeta, out: Path) -> Path:
+    """Write `net` as a contract ONNX file with `meta` in metadata_props."""
+    meta.size_multiple = int(getattr(net, "size_multiple", meta.size_multiple))
+    return save_onnx(to_onnx(net.eval(), meta.to_props()), out)
+
+
+def meta_from_checkpoint(ck: ckptmod.Checkpoint, role: str | None = None,
+                         parent: str = "", name: str = "") -> ModelMeta:
+    m = ck.meta
+    return ModelMeta(
+        role=role or m.get("role") or ("teacher" if ck.family == "teacher" else "student"),
+        precision="fp32", style=str(m.get("style", "")), size_multiple=1,
+        loss_network=str(m.get("loss_network", "")), parent=parent or str(m.get("parent", "")),
+        name=name or str(m.get("name", "")), arch={"family": ck.family, "model_args": ck.model_args},
+        recipe=dict(m.get("recipe", {})), quality=dict(m.get("quality", {})),
+        data_sha256=list(m.get("data_sha256", [])))
+
+
+def export(checkpoint: Path, out: Path, *, name: str = "") -> Path:
+    """The `export` subcommand: checkpoint file -> ONNX file (fp32)."""
+    ck = ckptmod.load(Path(checkpoint))
+    meta = meta_from_checkpoint(ck, name=name or Path(out).stem)
+    return export_model(ck.model(), meta, Path(out))

@@ -1,0 +1,164 @@
+"""Writes our networks as ONNX graphs directly (onnx.helper), layer by layer.
+
+Why not torch.onnx: its exporters change between torch releases (the default became
+the dynamo exporter, which needs onnxscript); our family is a handful of layer
+types, so writing the graph ourselves works the same on any torch from 2.4 on and
+gives exact control over the contract:
+
+  input  uint8 (N, H, W, 3) BGR --Cast, Transpose--> float (N, 3, H, W) BGR 0..255
+  the first conv absorbs the BGR->RGB swap and the /255 (weights permuted, scaled)
+  the last conv emits BGR (output channels permuted)
+  Sigmoid -> *255 -> +0.5 -> Clip(0, 255) -> Transpose -> Cast uint8 (N, H, W, 3) BGR
+"""
+from __future__ import annotations
+
+from typing import Callable
+
+import numpy as np
+import onnx
+from onnx import TensorProto, helper, numpy_helper
+from torch import nn
+
+from .layers import NearestUp2, Residual, Squash
+
+OPSET = 17
+IR_VERSION = 8  # the IR that goes with opset 17; loads on onnxruntime >= 1.14
+
+WeightFix = Callable[[np.ndarray, np.ndarray], tuple[np.ndarray, np.ndarray]]
+
+
+class _Graph:
+    def __init__(self) -> None:
+        self.nodes: list[onnx.NodeProto] = []
+        self.inits: list[onnx.TensorProto] = []
+        self.n = 0
+
+    def name(self, base: str) -> str:
+        self.n += 1
+        return f"{base}_{self.n}"
+
+    def const(self, base: str, value: np.ndarray) -> str:
+        n = self.name(base)
+        self.inits.append(numpy_helper.from_array(np.ascontiguousarray(value), n))
+        return n
+
+    def op(self, op_type: str, inputs: list[str], base: str | None = None, **attrs) -> str:
+        out = self.name(base or op_type.lower())
+        self.nodes.append(helper.make_node(op_type, inputs, [out], name=out, **attrs))
+        return out
+
+
+def _execution_order(module: nn.Module) -> list[nn.Module]:
+    """Leaf layers in forward order (our nets are Sequentials with Residual wrappers)."""
+    if isinstance(module, nn.Sequential):
+        return [m for child in module for m in _execution_order(child)]
+    if isinstance(module, Residual):
+        return _execution_order(module.body)
+    return [module]
+
+
+def _emit(g: _Graph, m: nn.Module, x: str, fixes: dict[int, WeightFix]) -> str:
+    if isinstance(m, nn.Sequential):
+        for child in m:
+            x = _emit(g, child, x, fixes)
+        return x
+    if isinstance(m, Residual):
+        return g.op("Add", [x, _emit(g, m.body, x, fixes)], "add")
+    if isinstance(m, nn.Conv2d):
+        w = m.weight.detach().cpu().numpy().astype(np.float32)
+        b = (m.bias.detach().cpu().numpy() if m.bias is not None
+             else np.zeros(w.shape[0])).astype(np.float32)
+        if id(m) in fixes:
+            w, b = fixes[id(m)](w, b)
+        kh, kw = m.kernel_size
+        ph, pw = m.padding if isinstance(m.padding, tuple) else (m.padding, m.padding)
+        if m.padding_mode == "reflect" and (ph or pw):
+            pads = g.const("pads", np.array([0, 0, ph, pw, 0, 0, ph, pw], np.int64))
+            x = g.op("Pad", [x, pads], "pad", mode="reflect")
+            ph = pw = 0
+        elif m.padding_mode not in ("zeros", "reflect"):
+            raise ValueError(f"padding mode {m.padding_mode!r} is not supported by the writer")
+        return g.op("Conv", [x, g.const("w", w), g.const("b", b)], "conv",
+                    kernel_shape=[kh, kw], strides=list(m.stride), pads=[ph, pw, ph, pw],
+                    group=m.groups, dilations=list(m.dilation))
+    if isinstance(m, nn.InstanceNorm2d):
+        return g.op("InstanceNormalization",
+                    [x, g.const("in_scale", m.weight.detach().numpy().astype(np.float32)),
+                     g.const("in_bias", m.bias.detach().numpy().astype(np.float32))],
+                    "inorm", epsilon=float(m.eps))
+    if isinstance(m, nn.ReLU):
+        return g.op("Relu", [x], "relu")
+    if isinstance(m, NearestUp2):
+        scales = g.const("scales", np.array([1, 1, 2, 2], np.float32))
+        return g.op("Resize", [x, "", scales], "up", mode="nearest",
+                    coordinate_transformation_mode="asymmetric", nearest_mode="floor")
+    if isinstance(m, nn.PixelShuffle):
+        return g.op("DepthToSpace", [x], "shuffle", blocksize=m.upscale_factor, mode="CRD")
+    if isinstance(m, nn.PixelUnshuffle):
+        # ONNX SpaceToDepth orders channels (block, c); torch orders (c, block): the
+        # next conv's input channels are permuted to match (see _first_conv_fix).
+        return g.op("SpaceToDepth", [x], "unshuffle", blocksize=m.downscale_factor)
+    if isinstance(m, Squash):
+        return g.op("Sigmoid", [x], "squash")
+    raise ValueError(f"layer {type(m).__name__} is not supported by the ONNX writer")
+
+
+def _first_conv_fix(r: int) -> WeightFix:
+    """Input is BGR 0..255 (space-to-depth'd in ONNX order); torch wants RGB 0..1."""
+    def fix(w: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        k = np.arange(3 * r * r)
+        torch_idx = (2 - k % 3) * r * r + k // 3
+        return (w[:, torch_idx] / 255.0).astype(np.float32), b
+    return fix
+
+
+def _last_conv_fix(r: int) -> WeightFix:
+    """Emit BGR instead of RGB, in depth-to-space (CRD) channel order."""
+    def fix(w: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        n = np.arange(3 * r * r)
+        old = (2 - n // (r * r)) * r * r + n % (r * r)
+        return w[old], b[old]
+    return fix
+
+
+def to_onnx(net: nn.Module, props: dict[str, str], graph_name: str = "limner") -> onnx.ModelProto:
+    """Build the contract graph for `net` (a Sequential `net.net` ending in Squash)."""
+    seq = net.net
+    layers = _execution_order(seq)
+    convs = [m for m in layers if isinstance(m, nn.Conv2d)]
+    if not isinstance(layers[-1], Squash):
+        raise ValueError("network must end in Squash")
+    down = layers[0].downscale_factor if isinstance(layers[0], nn.PixelUnshuffle) else 1
+    up = layers[-2].upscale_factor if isinstance(layers[-2], nn.PixelShuffle) else 1
+    fixes: dict[int, WeightFix] = {id(convs[0]): _first_conv_fix(down)}
+    last = _last_conv_fix(up)
+    if convs[-1] is convs[0]:
+        first = fixes[id(convs[0])]
+        fixes[id(convs[0])] = lambda w, b: last(*first(w, b))
+    else:
+        fixes[id(convs[-1])] = last
+
+    g = _Graph()
+    x = g.op("Cast", ["image"], "as_float", to=TensorProto.FLOAT)
+    x = g.op("Transpose", [x], "to_nchw", perm=[0, 3, 1, 2])
+    x = _emit(g, seq, x, fixes)
+    x = g.op("Mul", [x, g.const("k255", np.array(255.0, np.float32))], "scale")
+    x = g.op("Add", [x, g.const("half", np.array(0.5, np.float32))], "round")
+    x = g.op("Clip", [x, g.const("lo", np.array(0.0, np.float32)),
+                      g.const("hi", np.array(255.0, np.float32))], "clip")
+    x = g.op("Transpose", [x], "to_nhwc", perm=[0, 2, 3, 1])
+    g.nodes.append(helper.make_node("Cast", [x], ["stylized"], name="as_uint8", to=TensorProto.UINT8))
+
+    shape = ["batch", "height", "width", 3]
+    graph = helper.make_graph(
+        g.nodes, graph_name,
+        [helper.make_tensor_value_info("image", TensorProto.UINT8, shape)],
+        [helper.make_tensor_value_info("stylized", TensorProto.UINT8, shape)],
+        initializer=g.inits)
+    model = helper.make_model(graph, opset_imports=[helper.make_opsetid("", OPSET)],
+                              producer_name="limner")
+    model.ir_version = IR_VERSION
+    for k, v in props.items():
+        model.metadata_props.add(key=k, value=v)
+    onnx.checker.check_model(model)
+    return model

@@ -1,0 +1,124 @@
+"""The student family: Johnson-style encoder / residual / decoder nets built for speed.
+
+Int8-friendly by construction (DESIGN.md): conv + bias + ReLU, zero padding, no
+normalisation layers. Knobs:
+
+- width: multiplier on the teacher's (32, 64, 128) channels,
+- blocks: residual block count,
+- kernel_in / kernel_out: first and last kernel sizes (teacher: 9),
+- depthwise: depthwise-separable residual blocks,
+- downscale: internal space-to-depth factor (1 = none, 2 = work at half size),
+- upsample: "resize" (nearest resize + 3x3 conv) or "shuffle" (conv + pixel shuffle).
+
+`Student` itself takes explicit channel counts, so a pruned network (any channel
+counts) is rebuilt from its checkpoint without guessing; `student_args` turns the
+knobs into those explicit counts.
+"""
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass
+
+import torch
+from torch import nn
+
+from .layers import NearestUp2, Residual, Squash, conv
+
+UPSAMPLE_MODES = ("resize", "shuffle")
+
+
+@dataclass(frozen=True)
+class StudentKnobs:
+    width: float = 0.5
+    blocks: int = 3
+    kernel_in: int = 5
+    kernel_out: int = 5
+    depthwise: bool = False
+    downscale: int = 1
+    upsample: str = "resize"
+
+    def __post_init__(self) -> None:
+        if not 0.05 <= self.width <= 2.0:
+            raise ValueError(f"width={self.width}: must be between 0.05 and 2.0")
+        if not 0 <= self.blocks <= 16:
+            raise ValueError(f"blocks={self.blocks}: must be between 0 and 16")
+        for name in ("kernel_in", "kernel_out"):
+            k = getattr(self, name)
+            if k not in (1, 3, 5, 7, 9):
+                raise ValueError(f"{name}={k}: must be one of 1, 3, 5, 7, 9")
+        if self.downscale not in (1, 2, 4):
+            raise ValueError(f"downscale={self.downscale}: must be 1, 2 or 4")
+        if self.upsample not in UPSAMPLE_MODES:
+            raise ValueError(f"upsample={self.upsample!r}: must be one of {UPSAMPLE_MODES}")
+
+
+def _round_channels(c: float) -> int:
+    """Round to a multiple of 4 (at least 4): SIMD-friendly, common practice, no source."""
+    return max(4, int(round(c / 4.0)) * 4)
+
+
+def student_args(knobs: StudentKnobs) -> dict:
+    c1, c2, c3 = (_round_channels(c * knobs.width) for c in (32, 64, 128))
+    return {
+        "channels": [c1, c2, c3],
+        "hidden": [c3] * knobs.blocks,
+        "up_channels": [c2, c1],
+        "kernel_in": knobs.kernel_in,
+        "kernel_out": knobs.kernel_out,
+        "depthwise": knobs.depthwise,
+        "downscale": knobs.downscale,
+        "upsample": knobs.upsample,
+        "knobs": asdict(knobs),
+    }
+
+
+def _relu() -> nn.ReLU:
+    return nn.ReLU(inplace=True)
+
+
+def _block(c: int, hidden: int, depthwise: bool) -> Residual:
+    if depthwise:
+        body = nn.Sequential(conv(c, c, 3, groups=c), conv(c, hidden, 1), _relu(),
+                             conv(hidden, hidden, 3, groups=hidden), conv(hidden, c, 1))
+    else:
+        body = nn.Sequential(conv(c, hidden, 3), _relu(), conv(hidden, c, 3))
+    return Residual(body)
+
+
+def _up(cin: int, cout: int, mode: str) -> list[nn.Module]:
+    if mode == "resize":
+        return [NearestUp2(), conv(cin, cout, 3), _relu()]
+    return [conv(cin, cout * 4, 3), nn.PixelShuffle(2), _relu()]
+
+
+class Student(nn.Module):
+    def __init__(self, channels: list[int], hidden: list[int], up_channels: list[int],
+                 kernel_in: int = 5, kernel_out: int = 5, depthwise: bool = False,
+                 downscale: int = 1, upsample: str = "resize", knobs: dict | None = None) -> None:
+        super().__init__()
+        c1, c2, c3 = channels
+        u1, u2 = up_channels
+        self.model_args = {"channels": list(channels), "hidden": list(hidden),
+                           "up_channels": list(up_channels), "kernel_in": kernel_in,
+                           "kernel_out": kernel_out, "depthwise": depthwise,
+                           "downscale": downscale, "upsample": upsample,
+                           "knobs": dict(knobs or {})}
+        self.size_multiple = 4 * downscale
+        d2 = downscale * downscale
+        layers: list[nn.Module] = []
+        if downscale > 1:
+            layers.append(nn.PixelUnshuffle(downscale))
+        layers += [conv(3 * d2, c1, kernel_in), _relu(),
+                   conv(c1, c2, 3, 2), _relu(),
+                   conv(c2, c3, 3, 2), _relu()]
+        layers += [_block(c3, h, depthwise) for h in hidden]
+        layers += _up(c3, u1, upsample) + _up(u1, u2, upsample)
+        layers.append(conv(u2, 3 * d2, kernel_out))
+        if downscale > 1:
+            layers.append(nn.PixelShuffle(downscale))
+        layers.append(Squash())
+        self.net = nn.Sequential(*layers)
+
+    def forward(self, x: torch.Tensor) -> torch.Tensor:
+        # x: (N, 3, H, W) RGB in [0, 1], H and W multiples of size_multiple
+        #   -> (N, 3, H, W) RGB in [0, 1]
+        return self.net(x)

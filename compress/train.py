@@ -1,0 +1,241 @@
+"""Teacher training with perceptual losses (Johnson et al. 2016).
+
+Stoppable and resumable: checkpoints every N steps (atomic), `resume=True` continues
+from the last one (also after kill -9), Ctrl-C / SIGTERM save before exiting.
+Deterministic on CPU for a given seed: batch k is drawn from rng(seed, k).
+"""
+from __future__ import annotations
+
+import csv
+import hashlib
+import signal
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import cv2
+import numpy as np
+import torch
+
+from limner.runtime import config as cfgmod
+
+from . import checkpoint as ckptmod
+from .content import ContentSet, load_content, sample_batch
+from .losses import content_loss, gram, style_loss_layer, tv_loss
+from .lossnet import CONTENT_LAYER, STYLE_LAYERS, build_loss_net
+from .progress import Progress
+from .registry import build
+from .styles import style_image
+
+
+@dataclass
+class TrainConfig:
+    size: int = 160                 # crop side; Johnson et al. used 256 (CPU budgets want less)
+    batch: int = 4                  # Johnson et al. 2016
+    steps: int = 4000
+    lr: float = 1e-3                # Adam, Johnson et al. 2016
+    content_weight: float = 1.0     # relative to the normalised start value (see normalize_losses)
+    style_weight: float = 5.0       # the strength knob; 5:1 after normalisation, tuned here
+    style_layer_weights: list[float] = field(default_factory=lambda: [1.0, 1.0, 1.0, 1.0])
+    tv_weight: float = 0.05         # smoothness prior relative to the photo's TV (tuned here)
+    normalize_losses: bool = True   # divide each term by its value on the first batch
+    loss_net: str = "vgg16"         # "vgg16" (weights file / hub cache / download) or "random"
+    loss_weights: str = ""          # path to a VGG-16 state dict
+    loss_seed: int = 0              # seed of the random loss network
+    style_size: int = 256           # style image side fed to the loss network
+    seed: int = 0
+    checkpoint_every: int = 100
+    preview_every: int = 250
+    threads: int = 0                # 0: torch's default
+
+    def __post_init__(self) -> None:
+        if self.size < 32 or self.size % 4:
+            raise ValueError(f"size={self.size}: must be a multiple of 4, at least 32")
+        for k in ("batch", "steps", "checkpoint_every", "preview_every"):
+            if getattr(self, k) < 1:
+                raise ValueError(f"{k}={getattr(self, k)}: must be at least 1")
+        if len(self.style_layer_weights) != len(STYLE_LAYERS):
+            raise ValueError(f"style_layer_weights: need {len(STYLE_LAYERS)} values "
+                             f"({', '.join(STYLE_LAYERS)}), got {len(self.style_layer_weights)}")
+        if self.loss_net not in ("vgg16", "random"):
+            raise ValueError(f"loss_net={self.loss_net!r}: must be 'vgg16' or 'random'")
+
+
+class TrainError(Exception):
+    pass
+
+
+def _to_tensor(batch_rgb: np.ndarray) -> torch.Tensor:
+    # (B, H, W, 3) uint8 RGB -> (B, 3, H, W) float in [0, 1]
+    return torch.from_numpy(np.ascontiguousarray(batch_rgb)).permute(0, 3, 1, 2).float() / 255.0
+
+
+class PerceptualLoss:
+    """Content + style + TV terms with optional start-value normalisation."""
+
+    def __init__(self, cfg: TrainConfig, lossnet: torch.nn.Module, style_rgb: np.ndarray) -> None:
+        self.cfg, self.net = cfg, lossnet
+        s = cv2.resize(style_rgb, (cfg.style_size, cfg.style_size), interpolation=cv2.INTER_AREA)
+        with torch.no_grad():
+            feats = self.net(_to_tensor(s[None]))
+        self.style_grams = {k: gram(feats[k]) for k in STYLE_LAYERS}
+        self.scale: dict[str, float] = {}
+
+    def terms(self, y: torch.Tensor, x: torch.Tensor) -> dict[str, torch.Tensor]:
+        # y: stylised (B, 3, H, W); x: content (B, 3, H, W); both RGB in [0, 1]
+        fy = self.net(y)
+        with torch.no_grad():
+            fx = self.net(x, upto=CONTENT_LAYER)
+        # TV relative to the content's own TV: scale-free, so it is not start-normalised
+        t = {"content": content_loss(fy[CONTENT_LAYER], fx[CONTENT_LAYER]),
+             "tv": tv_loss(y) / tv_loss(x).clamp_min(1e-8)}
+        for k in STYLE_LAYERS:
+            t[f"style_{k}"] = style_loss_layer(fy[k], self.style_grams[k])
+        return t
+
+    def total(self, t: dict[str, torch.Tensor]) -> tuple[torch.Tensor, dict[str, float]]:
+        c = self.cfg
+        if not self.scale:
+            self.scale = {k: (float(v.detach()) if c.normalize_losses and k != "tv"
+                              and float(v.detach()) > 0 else 1.0) for k, v in t.items()}
+        n = {k: v / self.scale[k] for k, v in t.items()}
+        wsum = sum(c.style_layer_weights)
+        style = sum(w * n[f"style_{k}"] for w, k in zip(c.style_layer_weights, STYLE_LAYERS)) / wsum
+        total = c.content_weight * n["content"] + c.style_weight * style + c.tv_weight * n["tv"]
+        logs = {"total": float(total.detach()), "content": float(n["content"].detach()),
+                "style": float(style.detach()), "tv": float(n["tv"].detach())}
+        return total, logs
+
+
+def _preview(model: torch.nn.Module, images: list[np.ndarray], path: Path) -> None:
+    tiles_in, tiles_out = [], []
+    for img in images:
+        h, w = img.shape[:2]
+        s = min(h, w, 256)
+        y, x = (h - s) // 2, (w - s) // 2
+        crop = np.ascontiguousarray(img[y:y + s, x:x + s][:, :, ::-1])
+        crop = crop[: s // 4 * 4, : s // 4 * 4]
+        with torch.no_grad():
+            out = model(_to_tensor(crop[None]))[0].permute(1, 2, 0).numpy()
+        tiles_in.append(crop[:, :, ::-1])
+        tiles_out.append((out[:, :, ::-1] * 255 + 0.5).clip(0, 255).astype(np.uint8))
+    hgt = min(t.shape[0] for t in tiles_in)
+    row = lambda ts: np.concatenate([cv2.resize(t, (hgt, hgt)) for t in ts], 1)  # noqa: E731
+    path.parent.mkdir(parents=True, exist_ok=True)
+    cv2.imwrite(str(path), np.concatenate([row(tiles_in), row(tiles_out)], 0))
+
+
+def _log_rows_upto(csv_path: Path, step: int) -> None:
+    """After a crash the log may run past the last checkpoint: keep rows up to `step`."""
+    if not csv_path.exists():
+        return
+    rows = list(csv.reader(csv_path.open()))
+    if not rows:
+        return
+    keep = [rows[0]] + [r for r in rows[1:] if r and int(r[0]) <= step]
+    csv_path.write_text("".join(",".join(r) + "\n" for r in keep))
+
+
+class _Stop(Exception):
+    pass
+
+
+def train(style: str, content: list[str], out: Path, cfg: TrainConfig, *,
+          resume: bool = False, preview_content: list[str] | None = None,
+          export_onnx: bool = True) -> Path:
+    """Train a teacher for `style` on `content`; returns the checkpoint path."""
+    out = Path(out)
+    ckpt_path = out / "checkpoint.pt"
+    start_step, state, seconds_before = 0, None, 0.0
+    if ckpt_path.exists():
+        if not resume:
+            raise TrainError(f"{ckpt_path} exists: pass --resume to continue it, or choose another -o")
+        state = ckptmod.load(ckpt_path)
+        saved = cfgmod.from_dict(TrainConfig, state.meta["config"])
+        if saved.steps != cfg.steps:  # the one setting a resume may change
+            saved.steps = cfg.steps
+        cfg = saved
+        start_step = int(state.train_state["step"])
+        seconds_before = float(state.train_state.get("seconds", 0.0))
+    elif resume:
+        raise TrainError(f"--resume given but {ckpt_path} does not exist")
+    if cfg.threads:
+        torch.set_num_threads(cfg.threads)
+    torch.manual_seed(cfg.seed)
+
+    style_bgr, style_name = style_image(style)
+    data: ContentSet = load_content(content, min_items=1, min_side=cfg.size // 2)
+    previews = load_content(preview_content).items if preview_content else data.items[:4]
+    lossnet, source = build_loss_net(cfg.loss_net, Path(cfg.loss_weights) if cfg.loss_weights else None,
+                                     cfg.loss_seed)
+    loss = PerceptualLoss(cfg, lossnet, np.ascontiguousarray(style_bgr[:, :, ::-1]))
+
+    model = build("teacher")
+    opt = torch.optim.Adam(model.parameters(), lr=cfg.lr)
+    if state is not None:
+        model.load_state_dict(state.state_dict)
+        opt.load_state_dict(state.train_state["optimizer"])
+        loss.scale = dict(state.train_state["loss_scale"])
+        _log_rows_upto(out / "losses.csv", start_step)
+    out.mkdir(parents=True, exist_ok=True)
+    (out / "config.toml").write_text(cfgmod.dumps_toml(cfg))
+    meta = {"style": style_name,
+            "style_sha256": hashlib.sha256(style_bgr.tobytes()).hexdigest(),
+            "loss_network": source.describe(),
+            "data_sha256": data.hashes(), "data_sources": data.sources(),
+            "config": cfgmod.to_jsonable(cfg)}
+    cv2.imwrite(str(out / "style.png"), style_bgr)
+
+    def save(step: int) -> None:
+        ckptmod.save(ckptmod.from_model(model, meta, {"step": step, "optimizer": opt.state_dict(),
+                                                      "loss_scale": dict(loss.scale),
+                                                      "seconds": seconds_before + time.monotonic() - t0}),
+                     ckpt_path)
+
+    def on_term(signum, frame):  # SIGTERM behaves like Ctrl-C
+        raise _Stop()
+
+    old = signal.signal(signal.SIGTERM, on_term)
+    log_new = not (out / "losses.csv").exists()
+    log = (out / "losses.csv").open("a", newline="")
+    writer = csv.writer(log)
+    if log_new:
+        writer.writerow(["step", "total", "content", "style", "tv", "seconds"])
+    bar = Progress(cfg.steps, "train", start=start_step)
+    step = start_step
+    t0 = time.monotonic()
+    model.train()
+    try:
+        while step < cfg.steps:
+            rng = np.random.default_rng([cfg.seed, step])
+            x = _to_tensor(sample_batch(data, rng, cfg.batch, cfg.size))
+            y = model(x)
+            total, logs = loss.total(loss.terms(y, x))
+            opt.zero_grad(set_to_none=True)
+            total.backward()
+            opt.step()
+            step += 1
+            writer.writerow([step] + [f"{logs[k]:.6g}" for k in ("total", "content", "style", "tv")]
+                            + [f"{seconds_before + time.monotonic() - t0:.1f}"])
+            bar.update(1, f"loss {logs['total']:.3f} content {logs['content']:.3f} style {logs['style']:.3f}")
+            if step % cfg.checkpoint_every == 0 or step == cfg.steps:
+                log.flush()
+                save(step)
+            if step % cfg.preview_every == 0 or step == cfg.steps:
+                log.flush()
+                model.eval()
+                _preview(model, [i.image for i in previews], out / "previews" / f"step{step:06d}.png")
+                model.train()
+    except (KeyboardInterrupt, _Stop):
+        log.flush()
+        save(step)
+        print(f"\nstopped at step {step}; checkpoint saved to {ckpt_path} (continue with --resume)")
+        raise SystemExit(130)
+    finally:
+        bar.close()
+        signal.signal(signal.SIGTERM, old)
+        log.close()
+    if export_onnx:
+        from .export import export
+        export(ckpt_path, out / "teacher.onnx")
+    return ckpt_path
