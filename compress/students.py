@@ -122,3 +122,17 @@ class Student(nn.Module):
         # x: (N, 3, H, W) RGB in [0, 1], H and W multiples of size_multiple
         #   -> (N, 3, H, W) RGB in [0, 1]
         return self.net(x)
+
+
+# A ladder of student shapes from slow-and-faithful to fast-and-rough; the default
+# compression recipe draws on it and the tests cover every entry.
+PRESETS: dict[str, StudentKnobs] = {
+    "s-wide": StudentKnobs(width=0.5, blocks=3, kernel_in=5, kernel_out=5),
+    "s-mid": StudentKnobs(width=0.375, blocks=2, kernel_in=5, kernel_out=5),
+    "s-half": StudentKnobs(width=0.5, blocks=3, kernel_in=3, kernel_out=3, downscale=2,
+                           upsample="shuffle"),
+    "s-dw": StudentKnobs(width=0.5, blocks=3, kernel_in=3, kernel_out=3, depthwise=True,
+                         downscale=2, upsample="shuffle"),
+    "s-tiny": StudentKnobs(width=0.25, blocks=1, kernel_in=3, kernel_out=3, downscale=2,
+                           upsample="shuffle"),
+}

@@ -201,6 +201,8 @@ def train(style: str, content: list[str], out: Path, cfg: TrainConfig, *,
     writer = csv.writer(log)
     if log_new:
         writer.writerow(["step", "total", "content", "style", "tv", "seconds"])
+    if start_step:
+        print(f"resuming {ckpt_path} at step {start_step}", flush=True)
     bar = Progress(cfg.steps, "train", start=start_step)
     step = start_step
     t0 = time.monotonic()

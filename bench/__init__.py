@@ -1,0 +1,1 @@
+"""Limner bench: speed and quality measurement, reports, plots and pick (no torch)."""

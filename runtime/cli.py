@@ -1,0 +1,189 @@
+"""The `limner` command. Parses arguments only; each subcommand calls a library function.
+
+Subcommand modules are imported lazily, so `limner live`, `bench` and `pick` never
+load torch (a single-board computer runs them without it).
+"""
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+from typing import Callable
+
+NOT_BUILT = {"compress", "capture", "bench", "pick"}
+
+
+def _add_train(p: argparse.ArgumentParser) -> None:
+    p.add_argument("style", metavar="STYLE",
+                   help="a bundled style name (ember, tidepool, woodcut) or a style image path")
+    p.add_argument("--content", nargs="+", required=True, metavar="PATH",
+                   help="image folders, images, videos, or scenes:N (procedural scenes)")
+    p.add_argument("-o", "--out", required=True, type=Path, metavar="OUT",
+                   help="run folder: checkpoint, previews, loss log, config, teacher.onnx")
+    p.add_argument("--config", type=Path, help="TOML training config (configs/train/*.toml)")
+    p.add_argument("--resume", action="store_true", help="continue from OUT/checkpoint.pt")
+    p.add_argument("--preview", nargs="+", metavar="PATH",
+                   help="held-out images shown in the previews (default: first content images)")
+    for flag, tp, hlp in (("--steps", int, "training steps"), ("--size", int, "crop side in pixels"),
+                          ("--batch", int, "batch size"), ("--lr", float, "Adam learning rate"),
+                          ("--style-weight", float, "style strength"),
+                          ("--content-weight", float, "content weight"),
+                          ("--seed", int, "random seed"), ("--threads", int, "torch threads")):
+        p.add_argument(flag, type=tp, help=hlp + " (overrides the config)")
+    p.add_argument("--loss-net", choices=["vgg16", "random"],
+                   help="vgg16 (weights file, hub cache or download) or random features (explicit)")
+    p.add_argument("--loss-weights", metavar="FILE", help="VGG-16 state dict (features.N.weight layout)")
+
+
+def _run_train(a: argparse.Namespace) -> int:
+    from limner.compress.train import TrainConfig, train
+    from limner.runtime import config as cfgmod
+
+    cfg = cfgmod.load(TrainConfig, a.config, {
+        "steps": a.steps, "size": a.size, "batch": a.batch, "lr": a.lr,
+        "style_weight": a.style_weight, "content_weight": a.content_weight, "seed": a.seed,
+        "threads": a.threads, "loss_net": a.loss_net, "loss_weights": a.loss_weights})
+    ckpt = train(a.style, a.content, a.out, cfg, resume=a.resume, preview_content=a.preview)
+    print(f"checkpoint {ckpt}; model {a.out / 'teacher.onnx'}")
+    return 0
+
+
+def _add_export(p: argparse.ArgumentParser) -> None:
+    p.add_argument("checkpoint", type=Path, metavar="CHECKPOINT")
+    p.add_argument("-o", "--out", required=True, type=Path, metavar="FILE.onnx")
+
+
+def _run_export(a: argparse.Namespace) -> int:
+    from limner.compress.export import export
+
+    print(export(a.checkpoint, a.out))
+    return 0
+
+
+def _add_live(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--model", metavar="FILE", help="a Limner .onnx model (default: the bundled one)")
+    p.add_argument("--source", metavar="SRC",
+                   help="camera index, /dev/videoN, video file, stream URL, or 'demo' "
+                        "(default: camera 0 if one opens, else the demo clip)")
+    p.add_argument("--output", metavar="FILE", help="record the stylised video (.mp4, .avi)")
+    p.add_argument("--frames", type=int, default=0, metavar="N", help="stop after N frames")
+    p.add_argument("--headless", action="store_true", help="no window")
+    p.add_argument("--fullscreen", action="store_true", help="fullscreen window")
+    p.add_argument("--loop", action="store_true", help="loop a video file or the demo clip")
+    p.add_argument("--threads", type=int, default=0, help="inference threads (default: all cores)")
+
+
+def _run_live(a: argparse.Namespace) -> int:
+    from limner.runtime.live import LiveConfig, run_live
+
+    cfg = LiveConfig(source=a.source, output=a.output, frames=a.frames, headless=a.headless,
+                     fullscreen=a.fullscreen, threads=a.threads, loop=a.loop)
+    if a.model:
+        cfg.model = a.model
+    if a.frames < 0:
+        raise ValueError(f"--frames {a.frames}: must be 0 or more")
+    stats = run_live(cfg)
+    print(stats.line())
+    return 0
+
+
+def _add_capture(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--source", metavar="SRC", help="camera index, device, video or URL")
+    p.add_argument("--frames", type=int, metavar="N", help="number of frames to record")
+    p.add_argument("-o", "--out", type=Path, metavar="DIR")
+
+
+def _add_compress(p: argparse.ArgumentParser) -> None:
+    p.add_argument("teacher", metavar="TEACHER")
+    p.add_argument("--content", nargs="+", metavar="PATH")
+    p.add_argument("--recipe", type=Path)
+    p.add_argument("-o", "--out", type=Path, metavar="OUT")
+
+
+def _add_bench(p: argparse.ArgumentParser) -> None:
+    p.add_argument("models", nargs="+", metavar="MODEL_OR_DIR")
+    p.add_argument("--teacher", metavar="T")
+    p.add_argument("--content", nargs="+", metavar="HELD_OUT")
+    p.add_argument("-o", "--out", type=Path, metavar="REPORT")
+
+
+def _add_pick(p: argparse.ArgumentParser) -> None:
+    p.add_argument("report", metavar="REPORT")
+    p.add_argument("--min-fps", type=float, metavar="F")
+
+
+Sub = tuple[str, Callable[[argparse.ArgumentParser], None], Callable[[argparse.Namespace], int] | None]
+SUBCOMMANDS: list[Sub] = [
+    ("train", _add_train, _run_train),
+    ("export", _add_export, _run_export),
+    ("compress", _add_compress, None),
+    ("capture", _add_capture, None),
+    ("bench", _add_bench, None),
+    ("pick", _add_pick, None),
+    ("live", _add_live, _run_live),
+]
+HELP = {
+    "train": "train a teacher style network with perceptual losses",
+    "export": "write a checkpoint as a self-contained ONNX model",
+    "compress": "distill, prune and quantize a teacher into candidate models",
+    "capture": "record venue frames for distillation and calibration",
+    "bench": "measure fps and quality loss of models on this device",
+    "pick": "choose the fastest model that meets quality thresholds",
+    "live": "stylise a camera, video or the demo clip in real time",
+}
+
+
+def build_parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(prog="limner", description="Real-time style transfer for live "
+                                "cameras: train, compress, benchmark, pick and run style networks.")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND")
+    for name, add, _ in SUBCOMMANDS:
+        sp = sub.add_parser(name, help=HELP[name], description=HELP[name])
+        add(sp)
+    return p
+
+
+def _known_errors() -> tuple[type[BaseException], ...]:
+    """Error types whose message is already one clear line for the user."""
+    from limner.runtime.config import ConfigError
+    from limner.runtime.model import ModelError
+    from limner.runtime.sources import SourceError
+
+    errs: list[type[BaseException]] = [ConfigError, ModelError, SourceError, ValueError,
+                                       FileNotFoundError, OSError]
+    mods = ("limner.compress.train:TrainError", "limner.compress.checkpoint:CheckpointError",
+            "limner.compress.lossnet:LossNetError", "limner.compress.content:ContentError")
+    for spec in mods:  # only those already imported: never import torch just for this
+        mod, cls = spec.split(":")
+        if mod in sys.modules:
+            errs.append(getattr(sys.modules[mod], cls))
+    return tuple(errs)
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    a = parser.parse_args(argv)
+    if a.command is None:
+        parser.print_help()
+        return 2
+    run = {n: r for n, _, r in SUBCOMMANDS}[a.command]
+    if run is None:
+        print(f"limner {a.command}: not built yet in this release", file=sys.stderr)
+        return 2
+    try:
+        return run(a)
+    except ModuleNotFoundError as e:
+        if e.name in ("torch", "onnx"):
+            print(f"limner {a.command}: needs {e.name}; install the compress extra: "
+                  "pip install 'limner[compress]'", file=sys.stderr)
+            return 2
+        raise
+    except Exception as e:
+        if isinstance(e, _known_errors()):
+            print(f"limner {a.command}: error: {e}", file=sys.stderr)
+            return 1
+        raise
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,74 @@
+"""Where stylised frames go: a window, a video file."""
+from __future__ import annotations
+
+import os
+import sys
+from pathlib import Path
+
+import cv2
+import numpy as np
+
+WINDOW = "limner"
+
+
+def display_available() -> bool:
+    """A screen to draw on: X11/Wayland on Linux, assumed elsewhere; and a GUI-capable OpenCV."""
+    if sys.platform.startswith("linux") and not (os.environ.get("DISPLAY") or os.environ.get("WAYLAND_DISPLAY")):
+        return False
+    info = cv2.getBuildInformation()
+    gui_line = next((l for l in info.splitlines() if l.strip().startswith("GUI:")), "")
+    return "NONE" not in gui_line.upper()  # opencv-python-headless has no imshow
+
+
+class Window:
+    def __init__(self, fullscreen: bool = False) -> None:
+        cv2.namedWindow(WINDOW, cv2.WINDOW_NORMAL)  # WINDOW_NORMAL is needed for fullscreen
+        if fullscreen:
+            cv2.setWindowProperty(WINDOW, cv2.WND_PROP_FULLSCREEN, cv2.WINDOW_FULLSCREEN)
+
+    def show(self, frame: np.ndarray) -> int:
+        """Draw and return the key pressed (-1 for none); pollKey does not sleep."""
+        cv2.imshow(WINDOW, frame)
+        return cv2.pollKey()
+
+    def close(self) -> None:
+        cv2.destroyWindow(WINDOW)
+        cv2.pollKey()
+
+
+class VideoFile:
+    """mp4v for .mp4/.mov, MJPG for .avi (the pip wheels carry no H.264 encoder).
+
+    Written to a temp name and renamed on close, so an interrupted run leaves no
+    half-written file under the requested name."""
+
+    def __init__(self, path: Path, fps: float) -> None:
+        self.path = Path(path)
+        self.path.parent.mkdir(parents=True, exist_ok=True)
+        ext = self.path.suffix.lower()
+        if ext not in (".mp4", ".mov", ".avi", ".mkv"):
+            raise ValueError(f"{self.path}: output must end in .mp4, .mov, .avi or .mkv")
+        self.fourcc = cv2.VideoWriter_fourcc(*("MJPG" if ext in (".avi", ".mkv") else "mp4v"))
+        self.tmp = self.path.with_name(f".{self.path.stem}.partial{ext}")
+        self.fps = fps
+        self.writer: cv2.VideoWriter | None = None
+        self.size: tuple[int, int] | None = None
+        self.frames = 0
+
+    def write(self, frame: np.ndarray) -> None:
+        h, w = frame.shape[:2]
+        if self.writer is None:
+            self.size = (w, h)
+            self.writer = cv2.VideoWriter(str(self.tmp), self.fourcc, self.fps, self.size)
+            if not self.writer.isOpened():
+                raise OSError(f"{self.path}: cannot open a video writer")
+        if (w, h) != self.size:
+            frame = cv2.resize(frame, self.size, interpolation=cv2.INTER_LINEAR)
+        self.writer.write(frame)
+        self.frames += 1
+
+    def close(self) -> None:
+        if self.writer is not None:
+            self.writer.release()
+            self.writer = None
+            os.replace(self.tmp, self.path)
