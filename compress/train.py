@@ -23,7 +23,7 @@ from . import checkpoint as ckptmod
 from .content import ContentSet, load_content, sample_batch
 from .losses import content_loss, gram, style_loss_layer, tv_loss
 from .lossnet import CONTENT_LAYER, STYLE_LAYERS, build_loss_net
-from .progress import Progress
+from limner.runtime.progress import Progress
 from .registry import build
 from .styles import style_image
 

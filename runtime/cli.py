@@ -10,7 +10,6 @@ import sys
 from pathlib import Path
 from typing import Callable
 
-NOT_BUILT = {"compress", "capture", "bench", "pick"}
 
 
 def _add_train(p: argparse.ArgumentParser) -> None:
@@ -101,15 +100,52 @@ def _add_compress(p: argparse.ArgumentParser) -> None:
 
 
 def _add_bench(p: argparse.ArgumentParser) -> None:
-    p.add_argument("models", nargs="+", metavar="MODEL_OR_DIR")
-    p.add_argument("--teacher", metavar="T")
-    p.add_argument("--content", nargs="+", metavar="HELD_OUT")
-    p.add_argument("-o", "--out", type=Path, metavar="REPORT")
+    p.add_argument("models", nargs="+", metavar="MODEL_OR_DIR", help="model files or folders of them")
+    p.add_argument("--teacher", required=True, metavar="T", help="the teacher model (quality reference)")
+    p.add_argument("--content", nargs="+", required=True, metavar="HELD_OUT",
+                   help="held-out images (never seen in training, distillation or calibration)")
+    p.add_argument("--clip", metavar="VIDEO", help="clip for the warping error (default: the demo clip)")
+    p.add_argument("--config", type=Path, help="TOML bench config (configs/bench/default.toml)")
+    p.add_argument("--resolutions", nargs="+", metavar="WxH", help="override the resolution ladder")
+    p.add_argument("--threads", nargs="+", type=int, metavar="N", help="override thread counts (0: all)")
+    p.add_argument("--frames", type=int, metavar="N", help="timed frames per measurement")
+    p.add_argument("-o", "--out", required=True, type=Path, metavar="REPORT")
+
+
+def _run_bench(a: argparse.Namespace) -> int:
+    from limner.bench.config import BenchConfig
+    from limner.bench.run import bench
+    from limner.runtime import config as cfgmod
+
+    cfg = cfgmod.load(BenchConfig, a.config, {"resolutions": a.resolutions, "threads": a.threads,
+                                              "frames": a.frames})
+    if a.resolutions and cfg.plot_resolution not in cfg.resolutions:
+        cfg.plot_resolution = cfg.resolutions[min(1, len(cfg.resolutions) - 1)]
+    bench(a.models, a.teacher, a.content, a.out, cfg, clip=a.clip)
+    print(f"report: {a.out / 'report.md'} (json, csv, pareto.png, samples.png beside it)")
+    return 0
 
 
 def _add_pick(p: argparse.ArgumentParser) -> None:
-    p.add_argument("report", metavar="REPORT")
+    p.add_argument("report", metavar="REPORT", help="a bench report folder or its report.json")
     p.add_argument("--min-fps", type=float, metavar="F")
+    p.add_argument("--min-ms-ssim", metavar="S", help="number, or relative: floor, floor*K, floor-K")
+    p.add_argument("--min-ssim", metavar="S", help="number, or relative to the teacher's floor")
+    p.add_argument("--max-delta-e", metavar="D", help="S-CIELAB dE00; number or e.g. floor*2")
+    p.add_argument("--max-warp", type=float, metavar="W", help="warping error")
+    p.add_argument("--resolution", metavar="WxH", help="default: the report's plot resolution")
+
+
+def _run_pick(a: argparse.Namespace) -> int:
+    from limner.bench.pick import pick
+
+    r = pick(a.report, min_fps=a.min_fps, min_ms_ssim=a.min_ms_ssim, min_ssim=a.min_ssim,
+             max_delta_e=a.max_delta_e, max_warp=a.max_warp, resolution=a.resolution)
+    if r.chosen is None:
+        print("\n".join(r.lines), file=sys.stderr)
+        return 1
+    print("\n".join(r.lines))
+    return 0
 
 
 Sub = tuple[str, Callable[[argparse.ArgumentParser], None], Callable[[argparse.Namespace], int] | None]
@@ -118,8 +154,8 @@ SUBCOMMANDS: list[Sub] = [
     ("export", _add_export, _run_export),
     ("compress", _add_compress, None),
     ("capture", _add_capture, None),
-    ("bench", _add_bench, None),
-    ("pick", _add_pick, None),
+    ("bench", _add_bench, _run_bench),
+    ("pick", _add_pick, _run_pick),
     ("live", _add_live, _run_live),
 ]
 HELP = {
@@ -151,7 +187,8 @@ def _known_errors() -> tuple[type[BaseException], ...]:
 
     errs: list[type[BaseException]] = [ConfigError, ModelError, SourceError, ValueError,
                                        FileNotFoundError, OSError]
-    mods = ("limner.compress.train:TrainError", "limner.compress.checkpoint:CheckpointError",
+    mods = ("limner.bench.run:BenchError", "limner.bench.pick:PickError",
+            "limner.compress.train:TrainError", "limner.compress.checkpoint:CheckpointError",
             "limner.compress.lossnet:LossNetError", "limner.compress.content:ContentError")
     for spec in mods:  # only those already imported: never import torch just for this
         mod, cls = spec.split(":")

@@ -1,0 +1,128 @@
+"""`limner pick`: the fastest model in a bench report that meets the thresholds.
+
+Quality thresholds are absolute numbers or relative to the teacher's noise floor:
+`floor` (equal to it), `floor*K`, `floor+K`, `floor-K`; e.g. `--max-delta-e floor*2`.
+"""
+from __future__ import annotations
+
+import json
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from .report import speed_at
+
+
+class PickError(Exception):
+    pass
+
+
+@dataclass
+class Axis:
+    key: str          # name used in messages
+    flag: str
+    higher: bool      # True: value must be >= threshold
+
+
+AXES = {"fps": Axis("fps", "--min-fps", True), "ms_ssim": Axis("MS-SSIM", "--min-ms-ssim", True),
+        "ssim": Axis("SSIM", "--min-ssim", True), "delta_e": Axis("S-CIELAB dE00", "--max-delta-e", False),
+        "warp": Axis("warp error", "--max-warp", False)}
+
+
+@dataclass
+class PickResult:
+    chosen: dict | None
+    lines: list[str] = field(default_factory=list)
+
+
+def resolve_threshold(text: str | float | None, floor: float | None, flag: str) -> float | None:
+    if text is None:
+        return None
+    if isinstance(text, (int, float)):
+        return float(text)
+    s = str(text).strip().replace(" ", "")
+    try:
+        return float(s)
+    except ValueError:
+        pass
+    m = re.fullmatch(r"floor(?:([*+-])([0-9.]+))?", s)
+    if not m:
+        raise PickError(f"{flag} {text!r}: expected a number, floor, floor*K, floor+K or floor-K")
+    if floor is None:
+        raise PickError(f"{flag} {text!r}: this metric has no teacher noise floor")
+    op, k = m.group(1), float(m.group(2)) if m.group(2) else 0.0
+    return {None: floor, "*": floor * k, "+": floor + k, "-": floor - k}[op]
+
+
+def load_report(path: str | Path) -> dict:
+    p = Path(path)
+    if p.is_dir():
+        p = p / "report.json"
+    if not p.is_file():
+        raise PickError(f"{path}: no report.json (run `limner bench ... -o REPORT` first)")
+    try:
+        rep = json.loads(p.read_text())
+    except json.JSONDecodeError as e:
+        raise PickError(f"{p}: not valid JSON ({e})") from None
+    if rep.get("schema") != 1:
+        raise PickError(f"{p}: report schema {rep.get('schema')!r} is not one this Limner reads (1)")
+    return rep
+
+
+def _values(row: dict, resolution: str) -> dict[str, float | None]:
+    s = speed_at(row, resolution)
+    f = row["fidelity"]
+    st = row["stability"]
+    perfect = row["is_teacher"]
+    return {"fps": s["fps"] if s else None,
+            "ms_ssim": 1.0 if perfect else f["ms_ssim"]["mean"],
+            "ssim": 1.0 if perfect else f["ssim"]["mean"],
+            "delta_e": 0.0 if perfect else f["delta_e"]["mean"],
+            "warp": st.get("warp_error")}
+
+
+def pick(report: str | Path, *, min_fps: float | None = None, min_ms_ssim=None, min_ssim=None,
+         max_delta_e=None, max_warp=None, resolution: str | None = None) -> PickResult:
+    rep = load_report(report)
+    res = resolution or rep["config"]["plot_resolution"]
+    known = rep["resolutions"]
+    match = [r for r in known if r == res] or [r for r in known if r.split("x")[0] == res.split("x")[0]]
+    if not match:
+        raise PickError(f"--resolution {res}: the report measured {', '.join(known)}")
+    res = match[0]
+    floor = rep["floor"]
+    t = {"fps": min_fps,
+         "ms_ssim": resolve_threshold(min_ms_ssim, floor["ms_ssim"]["mean"], "--min-ms-ssim"),
+         "ssim": resolve_threshold(min_ssim, floor["ssim"]["mean"], "--min-ssim"),
+         "delta_e": resolve_threshold(max_delta_e, floor["delta_e"]["mean"], "--max-delta-e"),
+         "warp": resolve_threshold(max_warp, None, "--max-warp") if max_warp is not None else None}
+    active = {k: v for k, v in t.items() if v is not None}
+    if not active:
+        raise PickError("give at least one threshold, e.g. --min-fps 30")
+
+    def ok(v: float | None, k: str) -> bool:
+        return v is not None and (v >= active[k] if AXES[k].higher else v <= active[k])
+
+    rows = [(r, _values(r, res)) for r in rep["models"]]
+    passing = [(r, v) for r, v in rows if all(ok(v[k], k) for k in active)]
+    if passing:
+        best, v = max(passing, key=lambda rv: (rv[1]["fps"] or 0.0, rv[1]["ms_ssim"]))
+        why = [f"{v['fps']:.1f} fps at {res}"] + [
+            f"{AXES[k].key} {v[k]:.4g} ({'>=' if AXES[k].higher else '<='} {active[k]:.4g})"
+            for k in active if k != "fps"]
+        lines = [best["path"], f"chosen: {best['name']} ({best['precision']}), the fastest of "
+                 f"{len(passing)} qualifying model(s): " + ", ".join(why)]
+        return PickResult(best, lines)
+    lines = [f"no model meets all thresholds at {res}: "
+             + ", ".join(f"{AXES[k].key} {'>=' if AXES[k].higher else '<='} {active[k]:.4g}" for k in active),
+             "nearest misses:"]
+    for k in active:
+        others = [(r, v) for r, v in rows if all(ok(v[j], j) for j in active if j != k) and v[k] is not None]
+        pool = others or [(r, v) for r, v in rows if v[k] is not None]
+        if not pool:
+            continue
+        r, v = (max if AXES[k].higher else min)(pool, key=lambda rv: rv[1][k])
+        note = "meets the others" if others else "closest on this axis alone"
+        lines.append(f"  {AXES[k].key}: {r['name']} reaches {v[k]:.4g} (needs "
+                     f"{'>=' if AXES[k].higher else '<='} {active[k]:.4g}; {note})")
+    return PickResult(None, lines)

@@ -1,0 +1,71 @@
+"""The Pareto plot: fps against quality loss, frontier marked, thresholds drawn."""
+from __future__ import annotations
+
+from pathlib import Path
+
+import matplotlib
+
+matplotlib.use("Agg")
+import matplotlib.pyplot as plt  # noqa: E402
+
+COLOURS = {"fp32": "#1f77b4", "int8": "#d62728"}
+LABEL = {"ms_ssim": "MS-SSIM to the teacher (higher is better)",
+         "ssim": "SSIM to the teacher (higher is better)",
+         "psnr": "PSNR to the teacher, dB (higher is better)",
+         "delta_e": "S-CIELAB dE00 to the teacher (lower is better)"}
+
+
+def frontier(points: list[tuple[float, float]], higher_better: bool) -> list[int]:
+    """Indices of points not dominated in (quality, fps)."""
+    keep = []
+    for i, (q, f) in enumerate(points):
+        dominated = any((q2 >= q if higher_better else q2 <= q) and f2 >= f and (q2, f2) != (q, f)
+                        for q2, f2 in points)
+        if not dominated:
+            keep.append(i)
+    return keep
+
+
+def pareto_plot(rep: dict, path: Path) -> None:
+    from .report import quality_value, speed_at
+
+    cfg = rep["config"]
+    axis, res = cfg["quality_axis"], cfg["plot_resolution"]
+    res = next((r for r in rep["resolutions"] if r.split("x")[0] == res.split("x")[0]), rep["resolutions"][0])
+    hib = axis != "delta_e"
+    pts, rows = [], []
+    for r in rep["models"]:
+        s = speed_at(r, res)
+        if s:
+            pts.append((quality_value(r, axis), s["fps"]))
+            rows.append(r)
+    fig, ax = plt.subplots(figsize=(8, 5.5), dpi=110)
+    for prec, col in COLOURS.items():
+        xs = [p[0] for p, r in zip(pts, rows) if r["precision"] == prec]
+        ys = [p[1] for p, r in zip(pts, rows) if r["precision"] == prec]
+        if xs:
+            ax.scatter(xs, ys, c=col, s=46, label=prec, zorder=3)
+    front = sorted((pts[i] for i in frontier(pts, hib)), key=lambda p: p[0])
+    if len(front) > 1:
+        ax.step([p[0] for p in front], [p[1] for p in front], where="post" if not hib else "pre",
+                color="#555555", lw=1.2, ls="-", zorder=2, label="Pareto frontier")
+    for (x, y), r in zip(pts, rows):
+        ax.annotate(r["name"] + (" (teacher)" if r["is_teacher"] else ""), (x, y),
+                    textcoords="offset points", xytext=(5, 4), fontsize=8)
+    floor = rep["floor"][axis]["mean"]
+    ax.axvline(floor, color="#2ca02c", ls=":", lw=1.3, label=f"teacher's noise floor ({floor:.3g})")
+    ax.axhline(cfg["min_fps"], color="#ff7f0e", ls="--", lw=1.1, label=f"min fps {cfg['min_fps']:g}")
+    if axis == "ms_ssim":
+        ax.axvline(cfg["min_ms_ssim"], color="#9467bd", ls="--", lw=1.1,
+                   label=f"min MS-SSIM {cfg['min_ms_ssim']:g}")
+    ax.set_yscale("log")
+    ax.set_xlabel(LABEL[axis])
+    ax.set_ylabel(f"frames per second at {res} (log scale)")
+    m = rep["machine"]
+    ax.set_title(f"fps against quality loss: {m['cpu']}, {m['cores']} cores, onnxruntime {m['onnxruntime']}",
+                 fontsize=9)
+    ax.grid(True, which="both", alpha=0.3)
+    ax.legend(fontsize=8, loc="best")
+    fig.tight_layout()
+    fig.savefig(path)
+    plt.close(fig)

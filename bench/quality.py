@@ -1,0 +1,43 @@
+"""Quality loss against the teacher, the teacher's own noise floor, and stability."""
+from __future__ import annotations
+
+import numpy as np
+
+from .color import scielab_delta_e
+from .metrics import ms_ssim, psnr, ssim
+from .stability import warp_error
+
+HIGHER_IS_BETTER = {"ssim": True, "ms_ssim": True, "psnr": True, "delta_e": False}
+PSNR_CAP = 99.0  # identical images: report 99 dB instead of infinity (JSON has no inf)
+
+
+def pair_metrics(a: np.ndarray, b: np.ndarray, ppd: float) -> dict[str, float]:
+    return {"ssim": ssim(a, b), "ms_ssim": ms_ssim(a, b), "psnr": min(psnr(a, b), PSNR_CAP),
+            "delta_e": scielab_delta_e(a, b, ppd)}
+
+
+def summarise(per_image: list[dict[str, float]]) -> dict[str, dict[str, float]]:
+    """Mean and worst image for each metric (worst: lowest, or highest for delta_e)."""
+    out = {}
+    for k, hib in HIGHER_IS_BETTER.items():
+        vals = [d[k] for d in per_image if k in d]
+        if vals:
+            out[k] = {"mean": float(np.mean(vals)), "worst": float(min(vals) if hib else max(vals))}
+    return out
+
+
+def compare_sets(outs: list[np.ndarray], refs: list[np.ndarray], ppd: float) -> dict:
+    return summarise([pair_metrics(o, r, ppd) for o, r in zip(outs, refs)])
+
+
+def stability(clean_outs: list[np.ndarray], noisy_outs: list[np.ndarray],
+              clip_in: list[np.ndarray] | None, clip_outs: list[np.ndarray] | None) -> dict:
+    """A model's own output under camera-like noise against its clean output, and the
+    warping error on a clip."""
+    self_noise = [{"ssim": ssim(a, b), "ms_ssim": ms_ssim(a, b)} for a, b in zip(noisy_outs, clean_outs)]
+    out = {"noise_ssim": float(np.mean([d["ssim"] for d in self_noise])),
+           "noise_ms_ssim": float(np.mean([d["ms_ssim"] for d in self_noise]))}
+    if clip_in is not None and clip_outs is not None:
+        out["warp_error"] = warp_error(clip_in, clip_outs)
+        out["warp_error_input"] = warp_error(clip_in, clip_in)  # the clip's own residual
+    return out

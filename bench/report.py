@@ -1,0 +1,124 @@
+"""Writing a bench report: report.json, report.csv, report.md, pareto.png, samples.png."""
+from __future__ import annotations
+
+import csv
+import json
+from pathlib import Path
+
+import cv2
+import numpy as np
+
+from .plots import pareto_plot
+
+QUALITY_LABEL = {"ms_ssim": "MS-SSIM", "ssim": "SSIM", "psnr": "PSNR (dB)", "delta_e": "S-CIELAB dE00"}
+PERFECT = {"ms_ssim": 1.0, "ssim": 1.0, "psnr": 99.0, "delta_e": 0.0}
+
+
+def speed_at(row: dict, resolution: str, threads: int | None = None) -> dict | None:
+    cands = [s for s in row["speed"] if s["resolution"] == resolution
+             and (threads is None or s["threads"] == threads)]
+    return max(cands, key=lambda s: s["threads"]) if cands else None
+
+
+def quality_value(row: dict, axis: str) -> float:
+    if row["fidelity"] is None:  # the teacher against itself
+        return PERFECT[axis]
+    return row["fidelity"][axis]["mean"]
+
+
+def flat_rows(rep: dict) -> list[dict]:
+    out = []
+    teacher = next(r for r in rep["models"] if r["is_teacher"])
+    for r in rep["models"]:
+        for s in r["speed"]:
+            t = speed_at(teacher, s["resolution"], s["threads"])
+            f = r["fidelity"] or {}
+            row = {"name": r["name"], "path": r["path"], "role": r["role"], "precision": r["precision"],
+                   "resolution": s["resolution"], "threads": s["threads"],
+                   "fps": round(s["fps"], 2), "speedup": round(s["fps"] / t["fps"], 2) if t else "",
+                   "p50_ms": round(s["p50_ms"], 2), "p95_ms": round(s["p95_ms"], 2),
+                   "p99_ms": round(s["p99_ms"], 2), "load_s": round(s["load_s"], 3),
+                   "peak_rss_mb": round(r["peak_rss_mb"], 1), "size_mb": round(r["size_bytes"] / 1e6, 2)}
+            for k in ("ms_ssim", "ssim", "psnr", "delta_e"):
+                row[f"{k}_mean"] = round(f[k]["mean"], 4) if k in f else ""
+                row[f"{k}_worst"] = round(f[k]["worst"], 4) if k in f else ""
+            st = r["stability"]
+            row["noise_ms_ssim"] = round(st["noise_ms_ssim"], 4)
+            row["warp_error"] = round(st["warp_error"], 6) if "warp_error" in st else ""
+            out.append(row)
+    return out
+
+
+def _md_table(rep: dict, resolution: str) -> list[str]:
+    floor = rep["floor"]
+    lines = [f"### {resolution}", "",
+             "| model | precision | fps | x teacher | p50 ms | p95 ms | MS-SSIM mean / worst | SSIM mean "
+             "| PSNR dB | S-CIELAB dE00 mean / worst | own noise MS-SSIM | warp error | RSS MB |",
+             "|---|---|---|---|---|---|---|---|---|---|---|---|---|"]
+    for r in flat_rows(rep):
+        if r["resolution"] != resolution:
+            continue
+        q = (lambda k, w=True: "—" if r[f"{k}_mean"] == "" else
+             (f"{r[f'{k}_mean']:.3f} / {r[f'{k}_worst']:.3f}" if w else f"{r[f'{k}_mean']:.3f}"))
+        lines.append(f"| {r['name']} | {r['precision']} | {r['fps']:.1f} | {r['speedup']} | {r['p50_ms']:.1f} "
+                     f"| {r['p95_ms']:.1f} | {q('ms_ssim')} | {q('ssim', False)} | {q('psnr', False)} "
+                     f"| {q('delta_e')} | {r['noise_ms_ssim']:.3f} | {r['warp_error']} | {r['peak_rss_mb']:.0f} |")
+    lines += ["", f"Teacher's own noise floor (its output for noisy input, sigma {rep['noise_sigma']}, "
+              f"against its clean output): MS-SSIM {floor['ms_ssim']['mean']:.3f}, SSIM "
+              f"{floor['ssim']['mean']:.3f}, PSNR {floor['psnr']['mean']:.1f} dB, S-CIELAB dE00 "
+              f"{floor['delta_e']['mean']:.2f}. No student can be closer to the teacher than this.", ""]
+    return lines
+
+
+def markdown(rep: dict) -> str:
+    m = rep["machine"]
+    lines = ["# Limner bench report", "",
+             f"- machine: {m['cpu']} ({m['arch']}), {m['cores']} cores, features "
+             f"{', '.join(m['features']) or 'none detected'}; {m['os']}",
+             f"- onnxruntime {m['onnxruntime']}, Python {m['python']}; measured {m['date']}",
+             f"- teacher: `{rep['teacher']}`; held-out images: "
+             + ", ".join(f"`{Path(h['path']).name}`" for h in rep["held_out"]),
+             f"- quality at {rep['quality_resolution']}, viewing geometry "
+             f"{rep['config']['display_width_m']} m wide at {rep['config']['viewing_distance_m']} m "
+             f"({rep['pixels_per_degree']:.1f} px/degree); warping error on {rep['clip']}",
+             f"- speed: {rep['config']['warmup']} warm-up + {rep['config']['frames']} timed frames, "
+             "uint8 in and out, live-runtime session settings, one subprocess per model", "",
+             "![Pareto plot](pareto.png)", "", "![Samples](samples.png)", ""]
+    for res in rep["resolutions"]:
+        lines += _md_table(rep, res)
+    return "\n".join(lines) + "\n"
+
+
+def _label(img: np.ndarray, text: str) -> np.ndarray:
+    img = img.copy()
+    cv2.rectangle(img, (0, 0), (img.shape[1], 26), (0, 0, 0), -1)
+    cv2.putText(img, text, (6, 19), cv2.FONT_HERSHEY_SIMPLEX, 0.55, (255, 255, 255), 1, cv2.LINE_AA)
+    return img
+
+
+def sample_grid(inp: np.ndarray, samples: dict[str, np.ndarray], rep: dict, cols: int = 3) -> np.ndarray:
+    tiles = [_label(cv2.resize(inp, (320, 180), interpolation=cv2.INTER_AREA), "input")]
+    by_name = {r["name"]: r for r in rep["models"]}
+    for name, img in samples.items():
+        r = by_name.get(name) or next(x for x in rep["models"] if x["is_teacher"])
+        s = speed_at(r, rep["config"]["plot_resolution"])
+        fps = f", {s['fps']:.1f} fps" if s else ""
+        tiles.append(_label(cv2.resize(img, (320, 180), interpolation=cv2.INTER_AREA),
+                            f"{name} ({r['precision']}{fps})"))
+    while len(tiles) % cols:
+        tiles.append(np.zeros_like(tiles[0]))
+    rows = [np.concatenate(tiles[i:i + cols], 1) for i in range(0, len(tiles), cols)]
+    return np.concatenate(rows, 0)
+
+
+def write_all(rep: dict, out: Path, samples: dict[str, np.ndarray], sample_input: np.ndarray) -> None:
+    out.mkdir(parents=True, exist_ok=True)
+    (out / "report.json").write_text(json.dumps(rep, indent=1))
+    rows = flat_rows(rep)
+    with (out / "report.csv").open("w", newline="") as f:
+        w = csv.DictWriter(f, fieldnames=list(rows[0]))
+        w.writeheader()
+        w.writerows(rows)
+    cv2.imwrite(str(out / "samples.png"), sample_grid(sample_input, samples, rep))
+    pareto_plot(rep, out / "pareto.png")
+    (out / "report.md").write_text(markdown(rep))

@@ -1,0 +1,71 @@
+"""A tiny end-to-end bench, run with torch blocked (DESIGN.md: the bench runs on a board)."""
+from __future__ import annotations
+
+import csv
+import json
+import subprocess
+from pathlib import Path
+
+import pytest
+import torch
+
+from limner.compress import checkpoint as ck
+from limner.compress.content import file_sha256
+from limner.compress.export import export
+from limner.compress.registry import build
+
+from conftest import PY, REPO
+
+HERE = Path(__file__).parent
+HELD_OUT = [str(REPO / "runtime/assets/photos/chelsea.jpg"), str(REPO / "runtime/assets/photos/grace_hopper.jpg")]
+TINY = """resolutions = ["320x192"]
+quality_resolution = "320x192"
+plot_resolution = "320x192"
+warmup = 1
+frames = 3
+clip_frames = 3
+"""
+
+
+@pytest.fixture(scope="module")
+def candidates(tmp_path_factory):
+    d = tmp_path_factory.mktemp("cands")
+    torch.manual_seed(0)
+    for name, knobs, seen in (("tiny", dict(width=0.25, blocks=1, downscale=2, upsample="shuffle"), []),
+                              ("leaky", dict(width=0.25, blocks=0), [file_sha256(Path(HELD_OUT[0]))])):
+        net = build("student", **knobs)
+        ck.save(ck.from_model(net, {"style": "t", "loss_network": "none", "data_sha256": seen}), d / f"{name}.pt")
+        (d / name).mkdir()
+        export(d / f"{name}.pt", d / name / f"{name}.onnx")
+    (d / "tiny.toml").write_text(TINY)
+    return d
+
+
+def _bench(args, cwd):
+    return subprocess.run([PY, str(HERE / "torch_blocker.py"), "limner.runtime.cli", "bench", *args],
+                          capture_output=True, text=True, timeout=600, cwd=cwd)
+
+
+def test_tiny_bench_without_torch(candidates, teacher_onnx, tmp_path):
+    out = tmp_path / "report"
+    r = _bench([str(candidates / "tiny"), "--teacher", str(teacher_onnx), "--content", *HELD_OUT,
+                "--config", str(candidates / "tiny.toml"), "-o", str(out)], tmp_path)
+    assert r.returncode == 0, r.stderr
+    rep = json.loads((out / "report.json").read_text())
+    assert rep["schema"] == 1 and [m["name"] for m in rep["models"]] == ["teacher", "tiny"]
+    tiny = rep["models"][1]
+    assert tiny["speed"][0]["resolution"] == "320x192" and tiny["speed"][0]["fps"] > 0
+    assert 0 < tiny["fidelity"]["ms_ssim"]["mean"] < 1
+    assert 0 < rep["floor"]["ms_ssim"]["mean"] <= 1
+    assert "warp_error" in tiny["stability"]
+    rows = list(csv.DictReader((out / "report.csv").open()))
+    assert len(rows) == 2
+    for f in ("report.md", "pareto.png", "samples.png"):
+        assert (out / f).stat().st_size > 1000
+
+
+def test_bench_refuses_held_out_images_a_model_saw(candidates, teacher_onnx, tmp_path):
+    r = _bench([str(candidates / "leaky"), "--teacher", str(teacher_onnx), "--content", *HELD_OUT,
+                "--config", str(candidates / "tiny.toml"), "-o", str(tmp_path / "rep")], tmp_path)
+    assert r.returncode == 1
+    assert "chelsea.jpg was among the images" in r.stderr and "Traceback" not in r.stderr

@@ -1,0 +1,85 @@
+"""`limner pick` on a crafted report (a worked example: the expected choice follows
+from the rule "fastest model meeting every threshold" by hand)."""
+from __future__ import annotations
+
+import json
+import subprocess
+
+import pytest
+
+from limner.bench.pick import PickError, pick
+
+from conftest import PY
+
+
+def _row(name, fps, ms, de, warp, precision="fp32", teacher=False):
+    q = lambda v: {"mean": v, "worst": v}  # noqa: E731
+    return {"path": f"/models/{name}.onnx", "name": name, "role": "teacher" if teacher else "student",
+            "precision": precision, "is_teacher": teacher,
+            "speed": [{"resolution": "640x360", "threads": 2, "fps": fps, "p50_ms": 1000 / fps},
+                      {"resolution": "320x192", "threads": 2, "fps": fps * 3, "p50_ms": 300 / fps}],
+            "fidelity": None if teacher else {"ms_ssim": q(ms), "ssim": q(ms - 0.1), "delta_e": q(de),
+                                              "psnr": q(25.0)},
+            "stability": {"noise_ms_ssim": 0.95, "warp_error": warp}}
+
+
+@pytest.fixture
+def report(tmp_path):
+    rep = {"schema": 1, "config": {"plot_resolution": "640x360"}, "resolutions": ["320x192", "640x360"],
+           "floor": {"ms_ssim": {"mean": 0.90}, "ssim": {"mean": 0.85}, "delta_e": {"mean": 4.0},
+                     "psnr": {"mean": 30.0}},
+           "models": [_row("teacher", 2.3, 1, 0, 0.004, teacher=True),
+                      _row("wide", 20.0, 0.88, 5.0, 0.003),
+                      _row("mid", 35.0, 0.83, 7.0, 0.003),
+                      _row("mid-int8", 41.0, 0.81, 7.5, 0.003, "int8"),
+                      _row("tiny", 70.0, 0.72, 11.0, 0.002)]}
+    (tmp_path / "report.json").write_text(json.dumps(rep))
+    return tmp_path
+
+
+def test_fastest_qualifying_model_is_chosen(report):
+    r = pick(report, min_fps=30, min_ms_ssim=0.8)
+    assert r.chosen["name"] == "mid-int8"  # mid and mid-int8 qualify; mid-int8 is faster
+    r = pick(report, min_fps=30, min_ms_ssim=0.82)
+    assert r.chosen["name"] == "mid"
+    r = pick(report, min_fps=60)
+    assert r.chosen["name"] == "tiny"
+
+
+def test_thresholds_relative_to_the_teacher_floor(report):
+    # floor*2 for delta E: 2 * 4.0 = 8.0 -> mid-int8 (7.5) qualifies, tiny (11) does not
+    assert pick(report, min_fps=30, max_delta_e="floor*2").chosen["name"] == "mid-int8"
+    # floor-0.05 for MS-SSIM: 0.85 -> only wide (0.88) and the teacher qualify; wide is faster
+    assert pick(report, min_ms_ssim="floor-0.05").chosen["name"] == "wide"
+
+
+def test_resolution_choice(report):
+    # at 320x192 every model runs 3x faster: wide reaches 60 fps there
+    assert pick(report, min_fps=50, min_ms_ssim=0.85, resolution="320x192").chosen["name"] == "wide"
+
+
+def test_nothing_qualifies_lists_nearest_misses(report):
+    r = pick(report, min_fps=50, min_ms_ssim=0.85)
+    assert r.chosen is None
+    text = "\n".join(r.lines)
+    assert "no model meets all thresholds at 640x360" in text
+    assert "fps: wide reaches 20 (needs >= 50; meets the others)" in text
+    assert "MS-SSIM: tiny reaches 0.72 (needs >= 0.85; meets the others)" in text
+
+
+def test_cli_exit_codes(report):
+    ok = subprocess.run([PY, "-m", "limner.runtime.cli", "pick", str(report), "--min-fps", "30",
+                         "--min-ms-ssim", "0.8"], capture_output=True, text=True, timeout=60)
+    assert ok.returncode == 0 and ok.stdout.splitlines()[0] == "/models/mid-int8.onnx"
+    bad = subprocess.run([PY, "-m", "limner.runtime.cli", "pick", str(report), "--min-fps", "500"],
+                         capture_output=True, text=True, timeout=60)
+    assert bad.returncode == 1 and "nearest misses" in bad.stderr
+
+
+def test_bad_inputs_are_named(report, tmp_path):
+    with pytest.raises(PickError, match="--min-ms-ssim 'flor'"):
+        pick(report, min_ms_ssim="flor")
+    with pytest.raises(PickError, match="no report.json"):
+        pick(tmp_path / "nowhere")
+    with pytest.raises(PickError, match="--resolution 1920x1080"):
+        pick(report, min_fps=1, resolution="1920x1080")
