@@ -87,16 +87,46 @@ def _run_live(a: argparse.Namespace) -> int:
 
 
 def _add_capture(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--source", metavar="SRC", help="camera index, device, video or URL")
-    p.add_argument("--frames", type=int, metavar="N", help="number of frames to record")
-    p.add_argument("-o", "--out", type=Path, metavar="DIR")
+    p.add_argument("--source", metavar="SRC",
+                   help="camera index, /dev/videoN, video file, URL or 'demo' (default: camera 0, else demo)")
+    p.add_argument("--frames", type=int, required=True, metavar="N", help="number of frames to save")
+    p.add_argument("--every", type=int, default=1, metavar="K", help="keep every K-th frame (default 1)")
+    p.add_argument("-o", "--out", type=Path, required=True, metavar="DIR")
+
+
+def _run_capture(a: argparse.Namespace) -> int:
+    from limner.runtime.capture import capture
+
+    written = capture(a.source, a.frames, a.out, a.every)
+    print(f"wrote {len(written)} frame(s) to {a.out}")
+    return 0 if written else 1
 
 
 def _add_compress(p: argparse.ArgumentParser) -> None:
-    p.add_argument("teacher", metavar="TEACHER")
-    p.add_argument("--content", nargs="+", metavar="PATH")
-    p.add_argument("--recipe", type=Path)
-    p.add_argument("-o", "--out", type=Path, metavar="OUT")
+    p.add_argument("teacher", metavar="TEACHER", help="a Limner teacher checkpoint (.pt) or model (.onnx)")
+    p.add_argument("--content", nargs="+", required=True, metavar="PATH",
+                   help="image folders, images, videos, scenes:N; split by source into "
+                        "distillation, calibration and held-out sets")
+    p.add_argument("--recipe", type=Path, help="TOML recipe (default: configs/compress/default.toml)")
+    p.add_argument("-o", "--out", type=Path, required=True, metavar="OUT")
+
+
+def _run_compress(a: argparse.Namespace) -> int:
+    from limner.compress.pipeline import compress
+    from limner.compress.recipe import Recipe
+    from limner.runtime import config as cfgmod
+
+    recipe = cfgmod.load(Recipe, a.recipe or _default_recipe())
+    manifest = compress(a.teacher, a.content, recipe, a.out)
+    print(f"{len(manifest['candidates'])} candidate(s); manifest {a.out / 'manifest.json'}")
+    return 0
+
+
+def _default_recipe() -> Path:
+    here = Path(__file__).resolve().parents[1] / "configs" / "compress" / "default.toml"
+    if here.is_file():
+        return here
+    raise ValueError("no --recipe given and configs/compress/default.toml is not beside this install")
 
 
 def _add_bench(p: argparse.ArgumentParser) -> None:
@@ -152,8 +182,8 @@ Sub = tuple[str, Callable[[argparse.ArgumentParser], None], Callable[[argparse.N
 SUBCOMMANDS: list[Sub] = [
     ("train", _add_train, _run_train),
     ("export", _add_export, _run_export),
-    ("compress", _add_compress, None),
-    ("capture", _add_capture, None),
+    ("compress", _add_compress, _run_compress),
+    ("capture", _add_capture, _run_capture),
     ("bench", _add_bench, _run_bench),
     ("pick", _add_pick, _run_pick),
     ("live", _add_live, _run_live),
@@ -188,7 +218,7 @@ def _known_errors() -> tuple[type[BaseException], ...]:
     errs: list[type[BaseException]] = [ConfigError, ModelError, SourceError, ValueError,
                                        FileNotFoundError, OSError]
     mods = ("limner.bench.run:BenchError", "limner.bench.pick:PickError",
-            "limner.compress.train:TrainError", "limner.compress.checkpoint:CheckpointError",
+            "limner.compress.train:TrainError", "limner.compress.pipeline:CompressError", "limner.compress.checkpoint:CheckpointError",
             "limner.compress.lossnet:LossNetError", "limner.compress.content:ContentError")
     for spec in mods:  # only those already imported: never import torch just for this
         mod, cls = spec.split(":")

@@ -54,6 +54,10 @@ def _check_type(where: str, value: Any, tp: Any) -> Any:
         if not isinstance(value, dict):
             raise ConfigError(f"{where}: expected a table, got {value!r}")
         return {k: _check_type(f"{where}.{k}", v, args[1] if args else Any) for k, v in value.items()}
+    if tp in (dict, list):
+        if not isinstance(value, tp):
+            raise ConfigError(f"{where}: expected a {'table' if tp is dict else 'list'}, got {value!r}")
+        return value
     if tp is float:
         if isinstance(value, bool) or not isinstance(value, (int, float)):
             raise ConfigError(f"{where}: {value!r} is not a number")
@@ -135,6 +139,8 @@ def _toml_value(v: Any) -> str:
         return json.dumps(v)
     if isinstance(v, list):
         return "[" + ", ".join(_toml_value(x) for x in v) + "]"
+    if isinstance(v, dict):  # inline table
+        return "{" + ", ".join(f"{k} = {_toml_value(x)}" for k, x in v.items() if x is not None) + "}"
     raise TypeError(f"cannot write {v!r} as TOML")
 
 

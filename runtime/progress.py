@@ -12,6 +12,7 @@ class Progress:
         self.start_n, self.t0, self.last = start, time.monotonic(), 0.0
         self.stream, self.min_interval_s = stream, min_interval_s
         self.postfix = ""
+        self.drawn = -1
         if not getattr(stream, "isatty", lambda: False)():
             self.min_interval_s = max(min_interval_s, 15.0)  # logs get a line per 15 s
 
@@ -25,6 +26,7 @@ class Progress:
             self._draw(now)
 
     def _draw(self, now: float) -> None:
+        self.drawn = self.n
         done = self.n - self.start_n
         rate = done / max(now - self.t0, 1e-9)
         left = (self.total - self.n) / rate if rate > 0 else float("inf")
@@ -37,7 +39,8 @@ class Progress:
         self.stream.flush()
 
     def close(self) -> None:
-        self._draw(time.monotonic())
+        if self.drawn != self.n:
+            self._draw(time.monotonic())
         if getattr(self.stream, "isatty", lambda: False)():
             self.stream.write("\n")
 

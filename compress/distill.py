@@ -1,0 +1,156 @@
+"""Distillation of a teacher into a student (Hinton et al. 2015, applied to
+image-to-image: the student learns to reproduce the teacher's output).
+
+Pixel terms alone leave students dark and desaturated (measured: MS-SSIM 0.63 after
+1,500 steps of L1), so the loss mixes structure (L1, MS-SSIM), texture (loss-network
+features and Gram matrices of both outputs), colour statistics, and a noise term:
+the student's output for a frame with camera-like noise is pulled towards the
+teacher's output for the clean frame, so students can be steadier than their teacher.
+"""
+from __future__ import annotations
+
+import time
+from pathlib import Path
+
+import numpy as np
+import torch
+import torch.nn.functional as F
+from torch import nn
+
+from limner.runtime.model import Model
+from limner.runtime.progress import Progress
+
+from . import checkpoint as ckptmod
+from .checkpoint import atomic_write_bytes
+from .content import ContentSet, sample_batch
+from .losses import gram
+from .recipe import LossWeights, Recipe
+from .ssim_loss import ms_ssim
+
+FEATURE_LAYERS = ("relu2_2", "relu3_3")
+GRAM_LAYERS = ("relu1_2", "relu2_2", "relu3_3")
+
+
+def build_cache(teacher: Model, data: ContentSet, recipe: Recipe, path: Path) -> dict[str, np.ndarray]:
+    """Random crops of the distillation set and the teacher's outputs, computed once."""
+    path = Path(path)
+    if path.exists():
+        z = np.load(path)
+        if z["inputs"].shape[0] == recipe.cache_crops and z["inputs"].shape[1] == recipe.crop:
+            return {"inputs": z["inputs"], "targets": z["targets"]}
+    n, c = recipe.cache_crops, recipe.crop
+    inputs = np.empty((n, c, c, 3), np.uint8)
+    targets = np.empty_like(inputs)
+    bar = Progress(n, "teacher targets")
+    for i in range(n):
+        rgb = sample_batch(data, np.random.default_rng([recipe.seed, 7919, i]), 1, c)[0]
+        inputs[i] = rgb
+        targets[i] = teacher.run(np.ascontiguousarray(rgb[:, :, ::-1]))[:, :, ::-1]
+        bar.update(1)
+    bar.close()
+
+    def write(f):
+        np.savez(f, inputs=inputs, targets=targets)
+    atomic_write_bytes(path, write)
+    return {"inputs": inputs, "targets": targets}
+
+
+def _t(batch: np.ndarray) -> torch.Tensor:
+    # (B, H, W, 3) uint8 RGB -> (B, 3, H, W) float in [0, 1]
+    return torch.from_numpy(np.ascontiguousarray(batch)).permute(0, 3, 1, 2).float() / 255.0
+
+
+class DistillLoss:
+    def __init__(self, weights: LossWeights, lossnet: nn.Module) -> None:
+        self.w, self.net = weights, lossnet
+        self.scale: dict[str, float] = {}
+
+    def terms(self, student: nn.Module, x: torch.Tensor, t: torch.Tensor,
+              noise: torch.Tensor) -> dict[str, torch.Tensor]:
+        # x: input, t: teacher output, noise: same shape; all (B, 3, H, W) in [0, 1]
+        w = self.w
+        y = student(x)
+        out: dict[str, torch.Tensor] = {}
+        if w.pixel_l1:
+            out["pixel_l1"] = (y - t).abs().mean()
+        if w.ms_ssim:
+            out["ms_ssim"] = 1.0 - ms_ssim(y, t)
+        if w.color_stats:
+            out["color_stats"] = ((y.mean((2, 3)) - t.mean((2, 3))).abs().mean()
+                                  + (y.std((2, 3)) - t.std((2, 3))).abs().mean())
+        if w.feature or w.gram:
+            upto = "relu3_3"
+            fy = self.net(y, upto=upto)
+            with torch.no_grad():
+                ft = self.net(t, upto=upto)
+            if w.feature:
+                out["feature"] = sum(F.mse_loss(fy[k], ft[k]) for k in FEATURE_LAYERS)
+            if w.gram:
+                out["gram"] = sum(((gram(fy[k]) - gram(ft[k])) ** 2).sum((1, 2)).mean() for k in GRAM_LAYERS)
+        if w.noise_consistency:
+            yn = student((x + noise).clamp(0, 1))
+            out["noise_consistency"] = (yn - t).abs().mean()
+        return out
+
+    def total(self, terms: dict[str, torch.Tensor]) -> tuple[torch.Tensor, dict[str, float]]:
+        if not self.scale:
+            self.scale = {k: (float(v.detach()) if self.w.normalize and float(v.detach()) > 0 else 1.0)
+                          for k, v in terms.items()}
+        total = sum(getattr(self.w, k) * v / self.scale[k] for k, v in terms.items())
+        return total, {k: float(v.detach()) for k, v in terms.items()} | {"total": float(total.detach())}
+
+
+def distill(net: nn.Module, cache: dict[str, np.ndarray], recipe: Recipe, steps: int, lr: float,
+            lossnet: nn.Module, workdir: Path, desc: str, meta: dict) -> tuple[nn.Module, dict]:
+    """Train `net` on the cached pairs; resumable from workdir/checkpoint.pt."""
+    workdir = Path(workdir)
+    ckpt_path = workdir / "checkpoint.pt"
+    loss = DistillLoss(recipe.loss, lossnet)
+    opt = torch.optim.Adam(net.parameters(), lr=lr)
+    step, seconds_before = 0, 0.0
+    if ckpt_path.exists():
+        ck = ckptmod.load(ckpt_path)
+        net = ck.model().train()
+        opt = torch.optim.Adam(net.parameters(), lr=lr)
+        opt.load_state_dict(ck.train_state["optimizer"])
+        loss.scale = dict(ck.train_state["loss_scale"])
+        step = int(ck.train_state["step"])
+        seconds_before = float(ck.train_state.get("seconds", 0.0))
+        print(f"{desc}: resuming at step {step}", flush=True)
+    sched = torch.optim.lr_scheduler.CosineAnnealingLR(opt, T_max=steps, eta_min=lr * 0.05,
+                                                       last_epoch=-1)
+    for _ in range(step):
+        sched.step()
+    n = cache["inputs"].shape[0]
+    bar = Progress(steps, desc, start=step)
+    t0 = time.monotonic()
+    logs: dict[str, float] = {}
+
+    def save(s: int) -> None:
+        ckptmod.save(ckptmod.from_model(net, meta, {
+            "step": s, "optimizer": opt.state_dict(), "loss_scale": dict(loss.scale),
+            "seconds": seconds_before + time.monotonic() - t0, "last": dict(logs)}), ckpt_path)
+
+    net.train()
+    try:
+        while step < steps:
+            rng = np.random.default_rng([recipe.seed, 104729, step])
+            idx = rng.integers(0, n, recipe.batch)
+            x, t = _t(cache["inputs"][idx]), _t(cache["targets"][idx])
+            noise = torch.from_numpy(rng.normal(0, recipe.loss.noise_sigma / 255.0, x.shape).astype(np.float32))
+            total, logs = loss.total(loss.terms(net, x, t, noise))
+            opt.zero_grad(set_to_none=True)
+            total.backward()
+            opt.step()
+            sched.step()
+            step += 1
+            bar.update(1, " ".join(f"{k} {v:.3g}" for k, v in logs.items() if k in ("total", "pixel_l1", "ms_ssim")))
+            if step % recipe.checkpoint_every == 0 or step == steps:
+                save(step)
+    except KeyboardInterrupt:
+        save(step)
+        bar.close()
+        raise
+    bar.close()
+    net.eval()
+    return net, {"steps": steps, "seconds": seconds_before + time.monotonic() - t0, "final_loss": logs}

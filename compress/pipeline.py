@@ -1,0 +1,215 @@
+"""`limner compress`: a teacher -> a ladder of fp32 and int8 ONNX candidates + manifest.json.
+
+Resumable: finished candidates are skipped on a rerun; an unfinished student resumes
+from its checkpoint under OUT/work/.
+"""
+from __future__ import annotations
+
+import hashlib
+import json
+import time
+from dataclasses import asdict
+from pathlib import Path
+
+import numpy as np
+import torch
+
+from limner.runtime import config as cfgmod
+from limner.runtime.metadata import ModelMeta
+from limner.runtime.model import file_sha256, load_model
+
+from . import checkpoint as ckptmod
+from .checkpoint import atomic_write_bytes
+from .content import ContentItem, ContentSet, load_content
+from .distill import build_cache, distill
+from .export import export, export_model
+from .lossnet import build_loss_net
+from .macs import count_macs, count_params
+from .prune import conv_weight_count, prune
+from .recipe import Recipe
+from .registry import build
+
+
+class CompressError(Exception):
+    pass
+
+
+def split_by_source(data: ContentSet, recipe: Recipe) -> dict[str, ContentSet]:
+    """Deterministic split by source file (a video's frames stay together)."""
+    by_src: dict[str, list[ContentItem]] = {}
+    for it in data.items:
+        by_src.setdefault(it.sha256, []).append(it)
+    keys = sorted(by_src, key=lambda h: hashlib.sha256(f"{recipe.seed}:{h}".encode()).hexdigest())
+    n = len(keys)
+    n_cal = max(1, round(n * recipe.calibration_fraction)) if n >= 3 else 0
+    n_held = round(n * recipe.held_out_fraction) if n >= 3 else 0
+    if n - n_cal - n_held < 1:
+        raise CompressError(f"content has {n} source(s): too few to split into distillation, "
+                            "calibration and held-out sets")
+    parts = {"calibration": keys[:n_cal], "held_out": keys[n_cal:n_cal + n_held],
+             "distillation": keys[n_cal + n_held:]}
+    out = {k: ContentSet([it for h in v for it in by_src[h]], []) for k, v in parts.items()}
+    if not out["calibration"].items:  # tiny sets: calibrate on distillation images
+        out["calibration"] = out["distillation"]
+    return out
+
+
+class _Log:
+    def __init__(self, path: Path) -> None:
+        self.path = path
+
+    def __call__(self, msg: str) -> None:
+        print(msg, flush=True)
+        with self.path.open("a") as f:
+            f.write(time.strftime("%Y-%m-%d %H:%M:%S ") + msg + "\n")
+
+
+def _write_json(path: Path, obj: dict) -> None:
+    data = json.dumps(obj, indent=1).encode()
+    atomic_write_bytes(path, lambda f: f.write(data))
+
+
+def _calibration_frames(data: ContentSet, n: int, side: int, mult: int, seed: int) -> list[np.ndarray]:
+    from limner.bench.prepare import cover_crop
+
+    side = side - side % mult
+    rng = np.random.default_rng([seed, 31337])
+    idx = rng.permutation(len(data.items))
+    frames = []
+    for k in range(n):
+        img = data.items[int(idx[k % len(idx)])].image
+        h, w = img.shape[:2]
+        s = int(min(h, w) * rng.uniform(0.6, 1.0))
+        y, x = int(rng.integers(0, h - s + 1)), int(rng.integers(0, w - s + 1))
+        frames.append(cover_crop(img[y:y + s, x:x + s], side, side))
+    return frames
+
+
+def compress(teacher: str, content: list[str], recipe: Recipe, out: Path) -> dict:
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    (out / "work").mkdir(exist_ok=True)
+    log = _Log(out / "compress.log")
+    if recipe.threads:
+        torch.set_num_threads(recipe.threads)
+    (out / "recipe.toml").write_text(cfgmod.dumps_toml(recipe))
+    manifest_path = out / "manifest.json"
+    manifest = json.loads(manifest_path.read_text()) if manifest_path.exists() else {"candidates": {}}
+
+    # teacher: a checkpoint is exported first; an ONNX file is used as it is
+    tpath = Path(teacher)
+    if tpath.suffix == ".pt":
+        teacher_onnx = export(tpath, out / "work" / "teacher.onnx", name="teacher")
+    elif tpath.suffix == ".onnx":
+        teacher_onnx = tpath
+    else:
+        raise CompressError(f"{teacher}: expected a Limner checkpoint (.pt) or model (.onnx)")
+    tmodel = load_model(teacher_onnx)
+    if tmodel.meta.role != "teacher":
+        raise CompressError(f"{teacher}: role is {tmodel.meta.role!r}, expected a teacher")
+    teacher_sha = file_sha256(teacher_onnx)
+    manifest["teacher"] = {"path": str(tpath), "sha256": teacher_sha, "style": tmodel.meta.style}
+
+    data = load_content(content, min_items=3, min_side=recipe.crop)
+    splits = split_by_source(data, recipe)
+    manifest["splits"] = {k: {"sources": v.sources(), "sha256": v.hashes()} for k, v in splits.items()}
+    if data.skipped:
+        log(f"skipped {len(data.skipped)} unreadable or too small content file(s)")
+    seen = sorted(set(splits["distillation"].hashes()) | set(tmodel.meta.data_sha256))
+    lossnet, source = build_loss_net(recipe.loss_net, Path(recipe.loss_weights) if recipe.loss_weights else None,
+                                     recipe.loss_seed)
+    cache = build_cache(tmodel, splits["distillation"], recipe, out / "work" / "cache.npz")
+    _write_json(manifest_path, manifest)
+
+    def base_meta(name: str, role: str, parent: str, entry: dict) -> ModelMeta:
+        return ModelMeta(role=role, precision="fp32", style=tmodel.meta.style, size_multiple=1,
+                         loss_network=tmodel.meta.loss_network, parent=parent, name=name,
+                         recipe={"entry": entry, "distill_loss": asdict(recipe.loss),
+                                 "distill_loss_network": source.describe()},
+                         data_sha256=seen)
+
+    def record(name: str, path: Path, net: torch.nn.Module, entry: dict, info: dict) -> None:
+        manifest["candidates"][name] = {
+            "file": path.name, "role": entry["role"], "precision": "fp32", "parent": entry["parent"],
+            "parent_name": entry.get("parent_name", "teacher"), "knobs": net.model_args.get("knobs", {}),
+            "model_args": net.model_args, "parameters": count_params(net),
+            "conv_weights": conv_weight_count(net), "macs_640x360": count_macs(net, 360, 640),
+            "file_bytes": path.stat().st_size, "sha256": file_sha256(path), **info}
+        _write_json(manifest_path, manifest)
+
+    def done(name: str) -> bool:
+        c = manifest["candidates"].get(name)
+        return bool(c) and (out / c["file"]).exists() and file_sha256(out / c["file"]) == c["sha256"]
+
+    for spec in recipe.student:
+        if done(spec.name):
+            log(f"{spec.name}: done earlier, skipped")
+            continue
+        t0 = time.monotonic()
+        net = build("student", **spec.knobs)
+        entry = {**asdict(spec), "role": "student", "parent": teacher_sha}
+        net, info = distill(net, cache, recipe, spec.steps, spec.lr, lossnet, out / "work" / spec.name,
+                            f"distill {spec.name}", {"name": spec.name})
+        path = export_model(net, base_meta(spec.name, "student", teacher_sha, entry), out / f"{spec.name}.onnx")
+        record(spec.name, path, net, entry, {"distill": info, "wall_s": time.monotonic() - t0})
+        log(f"{spec.name}: {count_params(net):,} parameters, {count_macs(net, 360, 640) / 1e9:.2f} GMACs "
+            f"at 640x360, {info['steps']} steps in {info['seconds'] / 60:.1f} min")
+
+    for spec in recipe.prune:
+        if done(spec.name):
+            log(f"{spec.name}: done earlier, skipped")
+            continue
+        t0 = time.monotonic()
+        parent = manifest["candidates"][spec.parent]
+        pnet = ckptmod.load(out / "work" / spec.parent / "checkpoint.pt").model()
+        work = out / "work" / spec.name
+        if (work / "checkpoint.pt").exists():
+            net = ckptmod.load(work / "checkpoint.pt").model()
+        else:
+            net = prune(pnet, spec.ratio)
+        before = {"parameters": count_params(pnet), "conv_weights": conv_weight_count(pnet),
+                  "macs_640x360": count_macs(pnet, 360, 640), "file_bytes": parent["file_bytes"]}
+        entry = {**asdict(spec), "role": "pruned", "parent": parent["sha256"], "parent_name": spec.parent}
+        net, info = distill(net, cache, recipe, spec.steps, spec.lr, lossnet, work, f"recover {spec.name}",
+                            {"name": spec.name})
+        path = export_model(net, base_meta(spec.name, "pruned", parent["sha256"], entry), out / f"{spec.name}.onnx")
+        record(spec.name, path, net, entry, {"distill": info, "before_pruning": before,
+                                             "wall_s": time.monotonic() - t0})
+        c = manifest["candidates"][spec.name]
+        log(f"{spec.name}: pruned {spec.parent} by {1 - c['conv_weights'] / before['conv_weights']:.1%} of conv "
+            f"weights (target {spec.ratio:.0%}); parameters {before['parameters']:,} -> {c['parameters']:,}, "
+            f"GMACs {before['macs_640x360'] / 1e9:.2f} -> {c['macs_640x360'] / 1e9:.2f}, "
+            f"file {before['file_bytes'] / 1e6:.2f} -> {c['file_bytes'] / 1e6:.2f} MB")
+
+    if recipe.int8.enabled:
+        from .quantize import quantize, with_props
+
+        fp32 = [n for n in manifest["candidates"] if manifest["candidates"][n]["precision"] == "fp32"]
+        targets = recipe.int8.models or fp32
+        calib_set = splits["calibration"]
+        for name in targets:
+            qname = f"{name}-int8"
+            if done(qname):
+                log(f"{qname}: done earlier, skipped")
+                continue
+            t0 = time.monotonic()
+            c = manifest["candidates"][name]
+            fpath = out / c["file"]
+            m = load_model(fpath)
+            mult = m.size_multiple
+            calib = _calibration_frames(calib_set, recipe.int8.calibration_frames,
+                                        recipe.int8.calibration_size, mult, recipe.seed)
+            check = _calibration_frames(calib_set, 4, 320, mult, recipe.seed + 1)
+            props = {p: v for p, v in m.session.get_modelmeta().custom_metadata_map.items()}
+            qinfo_props = with_props(props, precision="int8", parent=c["sha256"], name=qname)
+            qpath = out / f"{qname}.onnx"
+            info = quantize(fpath, qpath, calib, check, recipe.int8, qinfo_props, calib_set.hashes(), log)
+            manifest["candidates"][qname] = {
+                "file": qpath.name, "role": c["role"], "precision": "int8", "parent": c["sha256"],
+                "parent_name": name, "knobs": c["knobs"], "model_args": c["model_args"],
+                "parameters": c["parameters"], "conv_weights": c["conv_weights"],
+                "macs_640x360": c["macs_640x360"], "file_bytes": qpath.stat().st_size,
+                "sha256": file_sha256(qpath), "calibration": info, "wall_s": time.monotonic() - t0}
+            _write_json(manifest_path, manifest)
+    log(f"done: {len(manifest['candidates'])} candidate(s) in {out}; manifest {manifest_path}")
+    return manifest

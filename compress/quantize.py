@@ -1,0 +1,189 @@
+"""int8: onnxruntime static quantization, QDQ format, per-channel weights.
+
+Integer types follow ONNX Runtime's own guidance, chosen from the CPU at run time:
+U8S8 (uint8 activations, int8 weights) with reduce_range off on x86 with VNNI, with
+reduce_range on for x86 without VNNI, and S8S8 on ARM. quant_pre_process runs
+first; calibration uses the calibration split (MinMax, Entropy or Percentile); a
+sensitivity pass leaves the convolutions whose int8 costs most quality in fp32, while
+at least `min_int8_mac_share` of the conv MACs stay int8.
+"""
+from __future__ import annotations
+
+import json
+import platform
+import tempfile
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import onnx
+from onnx import numpy_helper, shape_inference
+from onnxruntime.quantization import (CalibrationDataReader, CalibrationMethod, QuantFormat,
+                                      QuantType, quant_pre_process, quantize_static)
+
+from limner.bench.machine import cpu_features
+from limner.bench.metrics import ms_ssim
+from limner.runtime.metadata import PREFIX
+from limner.runtime.session import make_session
+
+from .export import save_onnx
+from .recipe import Int8Spec
+
+METHODS = {"minmax": CalibrationMethod.MinMax, "entropy": CalibrationMethod.Entropy,
+           "percentile": CalibrationMethod.Percentile}
+
+
+@dataclass(frozen=True)
+class IntTypes:
+    label: str
+    activation: QuantType
+    weight: QuantType
+    reduce_range: bool
+
+
+TYPES = {"u8s8": IntTypes("u8s8", QuantType.QUInt8, QuantType.QInt8, False),
+         "u8s8-reduced": IntTypes("u8s8-reduced", QuantType.QUInt8, QuantType.QInt8, True),
+         "s8s8": IntTypes("s8s8", QuantType.QInt8, QuantType.QInt8, False)}
+
+
+def detect_types() -> str:
+    arch = platform.machine().lower()
+    if arch in ("aarch64", "arm64") or arch.startswith("arm"):
+        return "s8s8"
+    feats = set(cpu_features())
+    return "u8s8" if feats & {"avx512_vnni", "avx_vnni"} else "u8s8-reduced"
+
+
+class _Frames(CalibrationDataReader):
+    def __init__(self, frames: list[np.ndarray], input_name: str) -> None:
+        self.frames, self.name, self.i = frames, input_name, 0
+
+    def get_next(self) -> dict | None:
+        if self.i >= len(self.frames):
+            return None
+        self.i += 1
+        return {self.name: self.frames[self.i - 1][None]}
+
+    def rewind(self) -> None:
+        self.i = 0
+
+
+def conv_macs(model: onnx.ModelProto, height: int, width: int) -> dict[str, int]:
+    """Conv node name -> MACs at a fixed input size (shape inference on a pinned copy)."""
+    m = onnx.ModelProto()
+    m.CopyFrom(model)
+    dims = m.graph.input[0].type.tensor_type.shape.dim
+    for d, v in zip(dims, (1, height, width, 3)):
+        d.Clear()
+        d.dim_value = v
+    m = shape_inference.infer_shapes(m)
+    shapes = {vi.name: [d.dim_value for d in vi.type.tensor_type.shape.dim]
+              for vi in list(m.graph.value_info) + list(m.graph.output)}
+    inits = {i.name: i for i in m.graph.initializer}
+    out = {}
+    for n in m.graph.node:
+        if n.op_type != "Conv":
+            continue
+        w = inits.get(n.input[1])
+        if w is None:  # QDQ: weight comes through DequantizeLinear
+            continue
+        co, ci, kh, kw = list(w.dims)
+        oh, ow = shapes[n.output[0]][2:4]
+        out[n.name] = oh * ow * co * ci * kh * kw
+    return out
+
+
+def count_qdq(model: onnx.ModelProto) -> dict[str, int]:
+    """How many Convs run between DequantizeLinear nodes, and int8 weight initializers
+    (the checks ONNX Runtime's own quantization tests make)."""
+    produced_by = {o: n for n in model.graph.node for o in n.output}
+    int8_inits = {i.name for i in model.graph.initializer
+                  if i.data_type in (onnx.TensorProto.INT8, onnx.TensorProto.UINT8)}
+    q_convs = 0
+    convs = 0
+    for n in model.graph.node:
+        if n.op_type != "Conv":
+            continue
+        convs += 1
+        x, w = (produced_by.get(n.input[0]), produced_by.get(n.input[1]))
+        if x is not None and w is not None and x.op_type == "DequantizeLinear" and \
+                w.op_type == "DequantizeLinear" and w.input[0] in int8_inits:
+            q_convs += 1
+    return {"convs": convs, "int8_convs": q_convs,
+            "quantize_nodes": sum(n.op_type == "QuantizeLinear" for n in model.graph.node),
+            "dequantize_nodes": sum(n.op_type == "DequantizeLinear" for n in model.graph.node),
+            "int8_initializers": len(int8_inits)}
+
+
+def _quantize(pre: Path, out: Path, frames: list[np.ndarray], spec: Int8Spec, types: IntTypes,
+              exclude: list[str], cache: Path) -> None:
+    quantize_static(str(pre), str(out), _Frames(frames, "image"), quant_format=QuantFormat.QDQ,
+                    op_types_to_quantize=["Conv", "Relu", "Add", "Resize", "DepthToSpace", "SpaceToDepth"],
+                    per_channel=True, reduce_range=types.reduce_range,
+                    activation_type=types.activation, weight_type=types.weight,
+                    nodes_to_exclude=list(exclude), calibrate_method=METHODS[spec.calibration],
+                    calibration_cache_path=str(cache))
+
+
+def _agreement(a_model: str | bytes, b_model: str | bytes, frames: list[np.ndarray]) -> float:
+    sa, sb = make_session(a_model, 2), make_session(b_model, 2)
+    vals = [ms_ssim(sa.run(None, {"image": f[None]})[0][0], sb.run(None, {"image": f[None]})[0][0])
+            for f in frames]
+    return float(np.mean(vals))
+
+
+def quantize(fp32_path: Path, out_path: Path, calib: list[np.ndarray], check: list[np.ndarray],
+             spec: Int8Spec, props: dict[str, str], calib_hashes: list[str], log=print) -> dict:
+    """Quantize one fp32 model; returns what it did (types, excluded layers, MAC share, agreement)."""
+    types = TYPES[detect_types() if spec.types == "auto" else spec.types]
+    with tempfile.TemporaryDirectory() as tmp:
+        tmp = Path(tmp)
+        pre = tmp / "pre.onnx"
+        quant_pre_process(str(fp32_path), str(pre))
+        pre_model = onnx.load(str(pre))
+        h, w = check[0].shape[:2]
+        macs = conv_macs(pre_model, h, w)
+        total = sum(macs.values())
+        cache = tmp / "calib"
+        full = tmp / "full.onnx"
+        _quantize(pre, full, calib, spec, types, [], cache)
+        base = _agreement(str(fp32_path), str(full), check)
+        gains: list[tuple[float, str]] = []
+        for node in macs:
+            trial = tmp / "trial.onnx"
+            _quantize(pre, trial, calib, spec, types, [node], cache)
+            gains.append((_agreement(str(fp32_path), str(trial), check) - base, node))
+        gains.sort(reverse=True)
+        exclude: list[str] = []
+        for gain, node in gains:
+            if len(exclude) >= spec.max_fp32_layers or gain < spec.min_gain:
+                break
+            share = 1 - sum(macs[n] for n in exclude + [node]) / total
+            if share >= spec.min_int8_mac_share:
+                exclude.append(node)
+        final = tmp / "final.onnx"
+        _quantize(pre, final, calib, spec, types, exclude, cache)
+        model = onnx.load(str(final))
+    agreement = _agreement(str(fp32_path), model.SerializeToString(), check)
+    counts = count_qdq(model)
+    share = 1 - sum(macs[n] for n in exclude) / total
+    info = {"types": types.label, "reduce_range": types.reduce_range, "method": spec.calibration,
+            "per_channel": True, "format": "QDQ", "frames": len(calib),
+            "frame_size": list(calib[0].shape[:2]), "excluded_fp32": exclude,
+            "int8_mac_share": share, "ms_ssim_to_fp32": agreement, "ms_ssim_all_int8": base,
+            **counts, "data_sha256": calib_hashes}
+    props = dict(props)
+    props[PREFIX + "calibration"] = json.dumps(info, sort_keys=True)  # how it was calibrated
+    del model.metadata_props[:]
+    for k, v in props.items():
+        model.metadata_props.add(key=k, value=v)
+    save_onnx(model, out_path)
+    log(f"  int8 {out_path.name}: {types.label}, {counts['int8_convs']}/{counts['convs']} convs int8, "
+        f"{share:.0%} of conv MACs, fp32 kept: {exclude or 'none'}, MS-SSIM to fp32 {agreement:.4f}")
+    return info | {"sensitivity": {n: g for g, n in gains}}
+
+
+def with_props(props: dict[str, str], **changes: str) -> dict[str, str]:
+    out = dict(props)
+    out.update({PREFIX + k: v for k, v in changes.items()})
+    return out

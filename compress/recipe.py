@@ -1,0 +1,110 @@
+"""The compression recipe (configs/compress/*.toml): the student ladder, pruning,
+int8 and the distillation losses."""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+from .students import StudentKnobs
+
+CALIBRATION_METHODS = ("minmax", "entropy", "percentile")
+INT_TYPES = ("auto", "u8s8", "u8s8-reduced", "s8s8")
+
+
+@dataclass
+class LossWeights:
+    """Distillation terms (each divided by its value on the first batch when `normalize`)."""
+    pixel_l1: float = 1.0          # structure, per pixel
+    ms_ssim: float = 1.0           # multi-scale structure (1 - MS-SSIM, 3 scales at 160 px crops)
+    feature: float = 1.0           # loss-network features of student vs teacher output (relu2_2, relu3_3)
+    gram: float = 1.0              # texture: Gram matrices of both outputs (relu1_2 .. relu4_3)
+    color_stats: float = 0.5       # per-channel mean and std of both outputs (colour cast, saturation)
+    noise_consistency: float = 0.5  # student(x + noise) against student(x): steadier on a live camera
+    noise_sigma: float = 2.0       # camera-like noise, grey levels
+    normalize: bool = True
+
+
+@dataclass
+class StudentSpec:
+    name: str
+    knobs: dict = field(default_factory=dict)
+    steps: int = 2000
+    lr: float = 1e-3
+
+    def __post_init__(self) -> None:
+        StudentKnobs(**self.knobs)  # validates knob names and values
+        if self.steps < 1:
+            raise ValueError(f"student {self.name}: steps={self.steps} must be at least 1")
+
+
+@dataclass
+class PruneSpec:
+    name: str
+    parent: str                    # a student name in this recipe
+    ratio: float = 0.3             # fraction of the parent's conv weights removed
+    steps: int = 800               # recovery distillation
+    lr: float = 5e-4
+    rank: str = "l1"               # filter L1 norm (Li et al. 2017)
+
+    def __post_init__(self) -> None:
+        if not 0.05 <= self.ratio <= 0.9:
+            raise ValueError(f"prune {self.name}: ratio={self.ratio} must be between 0.05 and 0.9")
+        if self.rank != "l1":
+            raise ValueError(f"prune {self.name}: rank={self.rank!r}; only 'l1' is implemented")
+
+
+@dataclass
+class Int8Spec:
+    enabled: bool = True
+    models: list[str] = field(default_factory=list)   # empty: every fp32 candidate
+    calibration: str = "minmax"
+    types: str = "auto"            # auto: from the CPU (U8S8 on x86, S8S8 on ARM)
+    calibration_frames: int = 32
+    calibration_size: int = 256
+    min_int8_mac_share: float = 0.8
+    max_fp32_layers: int = 3       # sensitivity pass leaves at most this many convs in fp32
+    min_gain: float = 0.002        # ... and only those whose fp32 restores at least this MS-SSIM
+
+    def __post_init__(self) -> None:
+        if self.calibration not in CALIBRATION_METHODS:
+            raise ValueError(f"int8.calibration={self.calibration!r}: one of {', '.join(CALIBRATION_METHODS)}")
+        if self.types not in INT_TYPES:
+            raise ValueError(f"int8.types={self.types!r}: one of {', '.join(INT_TYPES)}")
+        if not 0 <= self.min_int8_mac_share <= 1:
+            raise ValueError(f"int8.min_int8_mac_share={self.min_int8_mac_share}: between 0 and 1")
+
+
+@dataclass
+class Recipe:
+    crop: int = 160
+    batch: int = 8
+    cache_crops: int = 1500        # teacher targets computed once, reused by every student
+    seed: int = 0
+    threads: int = 0
+    checkpoint_every: int = 100
+    calibration_fraction: float = 0.15   # of content sources (split by source image)
+    held_out_fraction: float = 0.15
+    loss_net: str = "random"
+    loss_weights: str = ""
+    loss_seed: int = 0
+    loss: LossWeights = field(default_factory=LossWeights)
+    student: list[StudentSpec] = field(default_factory=list)
+    prune: list[PruneSpec] = field(default_factory=list)
+    int8: Int8Spec = field(default_factory=Int8Spec)
+
+    def __post_init__(self) -> None:
+        if self.crop % 16 or self.crop < 64:
+            raise ValueError(f"crop={self.crop}: must be a multiple of 16, at least 64")
+        names = [s.name for s in self.student] + [p.name for p in self.prune]
+        dup = {n for n in names if names.count(n) > 1}
+        if dup:
+            raise ValueError(f"candidate name {sorted(dup)[0]!r} appears twice in the recipe")
+        students = {s.name for s in self.student}
+        for p in self.prune:
+            if p.parent not in students:
+                raise ValueError(f"prune {p.name}: parent {p.parent!r} is not a student in this recipe")
+        for m in self.int8.models:
+            if m not in names:
+                raise ValueError(f"int8.models: {m!r} is not a candidate in this recipe")
+        if not 0 <= self.calibration_fraction < 1 or not 0 <= self.held_out_fraction < 1 or \
+                self.calibration_fraction + self.held_out_fraction >= 1:
+            raise ValueError("calibration_fraction + held_out_fraction must leave sources for distillation")

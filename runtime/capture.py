@@ -1,0 +1,45 @@
+"""`limner capture`: record venue frames (the real camera, light and scene) for
+distillation and calibration. Writes only when run, only into the folder given."""
+from __future__ import annotations
+
+from pathlib import Path
+
+import cv2
+
+from .progress import Progress
+from .sources import open_source
+
+
+def capture(source: str | None, frames: int, out: Path, every: int = 1, quality: int = 95) -> list[Path]:
+    """Save `frames` frames (every `every`-th frame read) as JPEGs named frame_000001.jpg ..."""
+    if frames < 1:
+        raise ValueError(f"--frames {frames}: must be at least 1")
+    if every < 1:
+        raise ValueError(f"--every {every}: must be at least 1")
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    existing = sorted(out.glob("frame_*.jpg"))
+    start = int(existing[-1].stem.split("_")[1]) + 1 if existing else 1
+    src = open_source(source)
+    written: list[Path] = []
+    bar = Progress(frames, "capture")
+    try:
+        n = 0
+        while len(written) < frames:
+            ok, frame = src.read()
+            if not ok or frame is None:
+                break
+            n += 1
+            if (n - 1) % every:
+                continue
+            path = out / f"frame_{start + len(written):06d}.jpg"
+            tmp = path.with_name(f".{path.stem}.tmp.jpg")
+            if not cv2.imwrite(str(tmp), frame, [cv2.IMWRITE_JPEG_QUALITY, quality]):
+                raise OSError(f"{tmp}: cannot write")
+            tmp.replace(path)
+            written.append(path)
+            bar.update(1)
+    finally:
+        src.release()
+        bar.close()
+    return written

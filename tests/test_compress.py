@@ -1,0 +1,157 @@
+"""Compression: pruning removes real channels, int8 is really int8, and a tiny recipe
+runs end to end (onnxruntime is the reference runtime throughout)."""
+from __future__ import annotations
+
+import json
+import subprocess
+from dataclasses import asdict
+from pathlib import Path
+
+import numpy as np
+import onnx
+import pytest
+import torch
+
+from limner.bench.metrics import ms_ssim
+from limner.compress.prune import _spaces, conv_weight_count, prune, prune_to
+from limner.compress.registry import build
+from limner.compress.students import PRESETS
+from limner.runtime.model import load_model
+
+from conftest import PY, REPO
+
+PHOTOS = [str(REPO / "runtime/assets/photos" / f"{n}.jpg") for n in ("astronaut", "coffee", "rocket")]
+TINY_RECIPE = """crop = 64
+batch = 2
+cache_crops = 12
+checkpoint_every = 5
+threads = 2
+
+[[student]]
+name = "a"
+knobs = {width = 0.25, blocks = 1, kernel_in = 3, kernel_out = 3, downscale = 2, upsample = "shuffle"}
+steps = 6
+
+[[student]]
+name = "b"
+knobs = {width = 0.25, blocks = 1, depthwise = true}
+steps = 4
+
+[[prune]]
+name = "a-p30"
+parent = "a"
+ratio = 0.3
+steps = 3
+
+[int8]
+calibration_frames = 4
+calibration_size = 64
+max_fp32_layers = 1
+models = ["a", "a-p30"]
+"""
+
+
+@pytest.mark.parametrize("name", list(PRESETS))
+def test_pruning_zero_filters_leaves_output_unchanged(name):
+    """Channels whose producing filters (and biases) are exactly zero contribute nothing;
+    removing them must not change the output (checked in float64, where the only
+    difference left is summation order), and the convs must really shrink."""
+    torch.manual_seed(0)
+    net = build("student", **asdict(PRESETS[name])).double().eval()
+    keep = {}
+    with torch.no_grad():
+        for space, s in _spaces(net).items():
+            drop = torch.arange(0, s.size, 3)
+            for conv, rows in s.producers:
+                r = (drop[:, None] * rows + torch.arange(rows)[None]).reshape(-1)
+                conv.weight[r] = 0
+                conv.bias[r] = 0
+            for conv in s.depthwise:
+                conv.weight[drop] = 0
+                conv.bias[drop] = 0
+            keep[space] = torch.tensor([i for i in range(s.size) if i % 3])
+    small = prune_to(net, keep).double()
+    x = torch.rand(2, 3, 64, 96, dtype=torch.float64)
+    with torch.no_grad():
+        assert (net(x) - small(x)).abs().max() < 1e-12
+    assert conv_weight_count(small) < conv_weight_count(net)
+    shrunk = [(a.weight.shape, b.weight.shape) for a, b in
+              zip([m for m in net.modules() if isinstance(m, torch.nn.Conv2d)],
+                  [m for m in small.modules() if isinstance(m, torch.nn.Conv2d)]) if a.weight.shape != b.weight.shape]
+    assert shrunk
+
+
+@pytest.mark.parametrize("ratio", [0.2, 0.3, 0.5])
+def test_pruning_ratio_within_five_percent(ratio):
+    net = build("student", **asdict(PRESETS["s-half"]))
+    small = prune(net, ratio)
+    achieved = 1 - conv_weight_count(small) / conv_weight_count(net)
+    assert abs(achieved - ratio) <= 0.05
+
+
+@pytest.fixture(scope="module")
+def tiny_run(teacher_onnx, tmp_path_factory):
+    out = tmp_path_factory.mktemp("compress")
+    (out / "tiny.toml").write_text(TINY_RECIPE)
+    r = subprocess.run([PY, "-m", "limner.runtime.cli", "compress", str(teacher_onnx), "--content", *PHOTOS,
+                        "scenes:3", "--recipe", str(out / "tiny.toml"), "-o", str(out / "run")],
+                       capture_output=True, text=True, timeout=900)
+    assert r.returncode == 0, r.stderr[-3000:]
+    return out / "run", r
+
+
+def test_tiny_recipe_end_to_end(tiny_run):
+    run, _ = tiny_run
+    man = json.loads((run / "manifest.json").read_text())
+    assert set(man["candidates"]) == {"a", "b", "a-p30", "a-int8", "a-p30-int8"}
+    for name, c in man["candidates"].items():
+        m = load_model(run / c["file"], threads=1)
+        assert m.meta.name == name and m.meta.data_sha256  # every image it saw is recorded
+        for k in ("parameters", "macs_640x360", "file_bytes", "sha256", "wall_s"):
+            assert c[k], (name, k)
+    p = man["candidates"]["a-p30"]
+    assert p["role"] == "pruned" and p["parent"] == man["candidates"]["a"]["sha256"]
+    assert abs(1 - p["conv_weights"] / p["before_pruning"]["conv_weights"] - 0.3) <= 0.05
+    # each pruned ONNX file has fewer conv weights than its parent's, by the ratio
+    def onnx_conv_weights(path):
+        g = onnx.load(str(path)).graph
+        ws = {n.input[1] for n in g.node if n.op_type == "Conv"}
+        return sum(int(np.prod(i.dims)) for i in g.initializer if i.name in ws)
+    ratio = 1 - onnx_conv_weights(run / "a-p30.onnx") / onnx_conv_weights(run / "a.onnx")
+    assert abs(ratio - 0.3) <= 0.05
+    assert (run / "recipe.toml").exists() and (run / "compress.log").exists()
+    splits = man["splits"]
+    assert not set(splits["distillation"]["sha256"]) & set(splits["calibration"]["sha256"])
+
+
+def test_int8_candidates_are_really_int8(tiny_run, photos):
+    """Count QuantizeLinear/DequantizeLinear around Conv and int8 weight initializers
+    (as ONNX Runtime's own quantization tests do), and check the int8 output against
+    its fp32 parent on real photos with onnxruntime."""
+    run, _ = tiny_run
+    for name in ("a", "a-p30"):
+        q = onnx.load(str(run / f"{name}-int8.onnx"))
+        produced = {o: n for n in q.graph.node for o in n.output}
+        int8 = {i.name for i in q.graph.initializer if i.data_type in (onnx.TensorProto.INT8, onnx.TensorProto.UINT8)}
+        convs = [n for n in q.graph.node if n.op_type == "Conv"]
+        quantized = [n for n in convs if produced.get(n.input[0]) is not None
+                     and produced[n.input[0]].op_type == "DequantizeLinear"
+                     and produced[n.input[1]].op_type == "DequantizeLinear"
+                     and produced[n.input[1]].input[0] in int8]
+        assert len(quantized) >= 0.8 * len(convs) and len(quantized) >= 1
+        meta = load_model(run / f"{name}-int8.onnx", threads=1).meta
+        assert meta.precision == "int8" and meta.calibration["method"] == "minmax"
+        assert meta.calibration["int8_mac_share"] >= 0.8
+        fp32 = load_model(run / f"{name}.onnx", threads=1)
+        i8 = load_model(run / f"{name}-int8.onnx", threads=1)
+        img = np.ascontiguousarray(photos["chelsea"][:192, :320])
+        assert ms_ssim(i8.run(img), fp32.run(img)) > 0.9
+
+
+def test_rerun_skips_finished_candidates(tiny_run, teacher_onnx):
+    run, _ = tiny_run
+    r = subprocess.run([PY, "-m", "limner.runtime.cli", "compress", str(teacher_onnx), "--content", *PHOTOS,
+                        "scenes:3", "--recipe", str(run.parent / "tiny.toml"), "-o", str(run)],
+                       capture_output=True, text=True, timeout=600)
+    assert r.returncode == 0
+    assert r.stdout.count("done earlier, skipped") == 5
