@@ -24,11 +24,10 @@ from . import checkpoint as ckptmod
 from .checkpoint import atomic_write_bytes
 from .content import ContentSet, sample_batch
 from .losses import gram
+from .lossnet import STYLE_LAYERS
 from .recipe import LossWeights, Recipe
 from .ssim_loss import ms_ssim
 
-FEATURE_LAYERS = ("relu2_2", "relu3_3")
-GRAM_LAYERS = ("relu1_2", "relu2_2", "relu3_3")
 
 
 def build_cache(teacher: Model, data: ContentSet, recipe: Recipe, path: Path) -> dict[str, np.ndarray]:
@@ -79,14 +78,15 @@ class DistillLoss:
             out["color_stats"] = ((y.mean((2, 3)) - t.mean((2, 3))).abs().mean()
                                   + (y.std((2, 3)) - t.std((2, 3))).abs().mean())
         if w.feature or w.gram:
-            upto = "relu3_3"
+            used = set(w.feature_layers if w.feature else []) | set(w.gram_layers if w.gram else [])
+            upto = max(used, key=STYLE_LAYERS.index)
             fy = self.net(y, upto=upto)
             with torch.no_grad():
                 ft = self.net(t, upto=upto)
             if w.feature:
-                out["feature"] = sum(F.mse_loss(fy[k], ft[k]) for k in FEATURE_LAYERS)
+                out["feature"] = sum(F.mse_loss(fy[k], ft[k]) for k in w.feature_layers)
             if w.gram:
-                out["gram"] = sum(((gram(fy[k]) - gram(ft[k])) ** 2).sum((1, 2)).mean() for k in GRAM_LAYERS)
+                out["gram"] = sum(((gram(fy[k]) - gram(ft[k])) ** 2).sum((1, 2)).mean() for k in w.gram_layers)
         if w.noise_consistency:
             yn = student((x + noise).clamp(0, 1))
             out["noise_consistency"] = (yn - t).abs().mean()

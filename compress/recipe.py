@@ -21,6 +21,15 @@ class LossWeights:
     noise_consistency: float = 0.5  # student(x + noise) against student(x): steadier on a live camera
     noise_sigma: float = 2.0       # camera-like noise, grey levels
     normalize: bool = True
+    # loss-network taps; the deepest one sets the cost (relu3_3 doubles it over relu2_2)
+    feature_layers: list[str] = field(default_factory=lambda: ["relu2_2"])
+    gram_layers: list[str] = field(default_factory=lambda: ["relu1_2", "relu2_2"])
+
+    def __post_init__(self) -> None:
+        from .lossnet import STYLE_LAYERS
+        for k in self.feature_layers + self.gram_layers:
+            if k not in STYLE_LAYERS:
+                raise ValueError(f"loss layer {k!r}: one of {', '.join(STYLE_LAYERS)}")
 
 
 @dataclass
