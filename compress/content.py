@@ -15,6 +15,7 @@ import cv2
 import numpy as np
 
 from limner.runtime.scenes import scene
+from limner.runtime.hashing import file_sha256  # noqa: F401  (re-exported)
 
 IMAGE_EXTS = {".jpg", ".jpeg", ".png", ".bmp", ".tif", ".tiff", ".webp"}
 VIDEO_EXTS = {".mp4", ".avi", ".mov", ".mkv", ".webm", ".m4v"}
@@ -42,13 +43,6 @@ class ContentSet:
     def sources(self) -> list[str]:
         return sorted({i.source.split("#")[0] for i in self.items})
 
-
-def file_sha256(path: Path) -> str:
-    h = hashlib.sha256()
-    with open(path, "rb") as f:
-        for chunk in iter(lambda: f.read(1 << 20), b""):
-            h.update(chunk)
-    return h.hexdigest()
 
 
 def _video_frames(path: Path, frames_per_video: int) -> list[np.ndarray]:

@@ -1,7 +1,6 @@
 """`limner export CHECKPOINT -o FILE.onnx`: a checkpoint -> a self-contained model file."""
 from __future__ import annotations
 
-import hashlib
 from pathlib import Path
 
 import onnx
@@ -12,14 +11,8 @@ from limner.runtime.metadata import ModelMeta
 from . import checkpoint as ckptmod
 from .checkpoint import atomic_write_bytes
 from .onnx_writer import to_onnx
+from limner.runtime.hashing import file_sha256  # noqa: F401  (re-exported)
 
-
-def file_sha256(path: Path) -> str:
-    h = hashlib.sha256()
-    with open(path, "rb") as f:
-        for chunk in iter(lambda: f.read(1 << 20), b""):
-            h.update(chunk)
-    return h.hexdigest()
 
 
 def save_onnx(model: onnx.ModelProto, out: Path) -> Path:

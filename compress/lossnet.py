@@ -10,7 +10,6 @@ Ustyuzhaninov et al. 2017 showed random features carry texture statistics).
 """
 from __future__ import annotations
 
-import hashlib
 import os
 import urllib.request
 from dataclasses import dataclass
@@ -19,6 +18,7 @@ from pathlib import Path
 import torch
 import torch.nn.functional as F
 from torch import nn
+from limner.runtime.hashing import file_sha256 as _sha256
 
 # (in, out) channels of VGG-16's convs up to conv4_3, with their `features.N` indices.
 _CONVS = [(0, 3, 64), (2, 64, 64), (5, 64, 128), (7, 128, 128), (10, 128, 256),
@@ -80,13 +80,6 @@ class VGG16Features(nn.Module):
                 h = F.max_pool2d(h, 2)
         return out
 
-
-def _sha256(path: Path) -> str:
-    h = hashlib.sha256()
-    with open(path, "rb") as f:
-        for chunk in iter(lambda: f.read(1 << 20), b""):
-            h.update(chunk)
-    return h.hexdigest()
 
 
 def load_state_dict_into(net: VGG16Features, state: dict, origin: str) -> None:

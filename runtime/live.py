@@ -1,97 +1,109 @@
-"""`limner live`: camera (or clip) -> model -> window / file, with an fps line at the end."""
+"""`limner live`: camera (or clip) -> model(s) -> window / file, with a summary line.
+
+Settings come from a show file (`--show`), with command-line flags on top; without a
+show file, the one model given (default: the bundled one) plays.
+"""
 from __future__ import annotations
 
-import signal
-import time
+import dataclasses
+import logging
 from dataclasses import dataclass
 from pathlib import Path
 
-import numpy as np
-
 from .bundled import DEFAULT_MODEL
-from .frames import crop_to_multiple
-from .model import load_model
-from .sinks import VideoFile, Window, display_available
-from .sources import open_source
+from .pipeline import Live, LiveStats
+from .settings import PlayItem, ShowConfig, load_show
+from .sinks import Window, display_available
+from .sources import DEMO, apply_camera_locks, open_source
+from .unattended import setup_logging
+
+log = logging.getLogger("limner.live")
 
 
 @dataclass
-class LiveConfig:
-    model: str = str(DEFAULT_MODEL)
-    source: str | None = None       # None: default camera, else the demo clip
-    output: str | None = None       # video file to record to
-    frames: int = 0                 # stop after this many frames (0: run until quit / end)
+class LiveOptions:
+    """Command-line choices; None means "as the show file (or default) says"."""
+    show: str | None = None
+    model: str | None = None
+    source: str | None = None
+    output: str | None = None
+    frames: int = 0
     headless: bool = False
-    fullscreen: bool = False
-    threads: int = 0                # onnxruntime intra-op threads (0: all cores)
-    loop: bool = False              # loop a video file / the demo clip
+    fullscreen: bool | None = None
+    threads: int | None = None
+    loop: bool | None = None
+    resolution: str | None = None
+    pace_fps: float | None = None
+    no_governor: bool = False
+    snapshot_dir: str | None = None
+    log_dir: str | None = None
+    heartbeat: str | None = None
     demo_output: str = "limner-demo.mp4"  # written when the demo clip runs with no screen
 
 
-@dataclass
-class LiveStats:
-    frames: int
-    seconds: float
-    infer_seconds: float
-    output: str | None
+def resolve(opts: LiveOptions) -> ShowConfig:
+    show = load_show(Path(opts.show)) if opts.show else ShowConfig()
+    if opts.model or not show.play:
+        show.play = [PlayItem(model=str(opts.model or DEFAULT_MODEL), seconds=1e9)]
+    c, i, d, o = show.capture, show.inference, show.display, show.output
+    if opts.source is not None:
+        c.source = opts.source
+    if opts.loop is not None:
+        c.loop = opts.loop
+    if opts.pace_fps is not None:
+        c.pace_fps = opts.pace_fps
+    if opts.threads is not None:
+        i.threads = opts.threads
+    if opts.resolution:
+        i.resolution = opts.resolution
+        i.__post_init__()
+    if opts.no_governor:
+        i.governor = False
+    if opts.fullscreen is not None:
+        d.fullscreen = opts.fullscreen
+    if opts.headless:
+        d.window = False
+    if opts.output is not None:
+        o.record = opts.output
+    for name in ("snapshot_dir", "log_dir", "heartbeat"):
+        v = getattr(opts, name)
+        if v is not None:
+            setattr(o, name, v)
+    return show
 
-    @property
-    def fps(self) -> float:
-        return self.frames / self.seconds if self.seconds > 0 else 0.0
 
-    def line(self) -> str:
-        infer = self.frames / self.infer_seconds if self.infer_seconds > 0 else 0.0
-        s = (f"processed {self.frames} frames in {self.seconds:.1f} s: {self.fps:.1f} fps end to end "
-             f"({infer:.1f} fps inference alone)")
-        return s + (f"; wrote {self.output}" if self.output else "")
+def run_live(opts: LiveOptions) -> LiveStats:
+    show = resolve(opts)
+    setup_logging(show.output.log_dir, show.output.log_max_bytes, show.output.log_backups)
+    c = show.capture
+    spec = c.source or None
+
+    # open once up front so a bad source fails with a clear message before anything starts
+    first = open_source(spec, width=c.width, height=c.height, fps=c.fps, mjpg=c.mjpg, loop=c.loop)
+    is_demo = first.description.startswith("demo")
+    pending = [first]
+
+    def opener():
+        src = pending.pop() if pending else open_source(
+            spec if not is_demo else DEMO, width=c.width, height=c.height, fps=c.fps, mjpg=c.mjpg, loop=c.loop)
+        apply_camera_locks(src, c)
+        return src
+
+    show_window = show.display.window and display_available()
+    record = show.output.record or None
+    if record is None and not show_window and is_demo:
+        record = opts.demo_output  # with no screen, a file is the only way to see the result
+    d = show.display
+    window = Window(d.fullscreen, d.monitor_x, d.monitor_y, d.monitor_width, d.monitor_height) \
+        if show_window else None
+    names = ", ".join(Path(p.model).name for p in show.play)
+    print(f"playing {names}; source {first.description}; {'window' if window else 'no window'}"
+          + (f"; recording to {record}" if record else ""), flush=True)
+    live = Live(show, opener, max_frames=opts.frames, window=window, record=record,
+                record_fps=c.pace_fps or c.fps)
+    return live.run()
 
 
-class _Quit(Exception):
-    pass
-
-
-def run_live(cfg: LiveConfig) -> LiveStats:
-    model = load_model(cfg.model, cfg.threads)
-    source = open_source(cfg.source, loop=cfg.loop)
-    show = not cfg.headless and display_available()
-    out_path = cfg.output
-    if out_path is None and not show and not source.is_live and source.description.startswith("demo"):
-        out_path = cfg.demo_output  # nothing else would show the result
-    print(f"model {model.path.name} ({model.meta.role}, {model.meta.precision}, style "
-          f"{model.meta.style or '?'}); source {source.description}; "
-          f"{'window' if show else 'no window'}" + (f"; recording to {out_path}" if out_path else ""))
-    window = Window(cfg.fullscreen) if show else None
-    writer = VideoFile(Path(out_path), 30.0) if out_path else None
-
-    def on_signal(signum, frame):
-        raise _Quit()
-
-    old = {s: signal.signal(s, on_signal) for s in (signal.SIGINT, signal.SIGTERM)}
-    n, infer = 0, 0.0
-    t0 = time.perf_counter()
-    try:
-        while not cfg.frames or n < cfg.frames:
-            ok, frame = source.read()
-            if not ok or frame is None:
-                break
-            x = np.ascontiguousarray(crop_to_multiple(frame, model.size_multiple))
-            ti = time.perf_counter()
-            y = model.run(x)
-            infer += time.perf_counter() - ti
-            n += 1
-            if writer:
-                writer.write(y)
-            if window and window.show(y) in (ord("q"), 27):
-                break
-    except _Quit:
-        pass
-    finally:
-        seconds = time.perf_counter() - t0
-        for s, h in old.items():
-            signal.signal(s, h)
-        source.release()
-        if writer:
-            writer.close()
-        if window:
-            window.close()
-    return LiveStats(n, seconds, infer, out_path)
+def options_from(**kw) -> LiveOptions:
+    fields = {f.name for f in dataclasses.fields(LiveOptions)}
+    return LiveOptions(**{k: v for k, v in kw.items() if k in fields})

@@ -5,7 +5,6 @@ raises ModelError with one line naming the file and the problem.
 """
 from __future__ import annotations
 
-import hashlib
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -14,6 +13,7 @@ import onnxruntime as ort
 
 from .metadata import MetadataError, ModelMeta
 from .session import make_session
+from .hashing import file_sha256  # noqa: F401  (re-exported)
 
 
 class ModelError(Exception):
@@ -39,13 +39,6 @@ class Model:
     def sha256(self) -> str:
         return file_sha256(self.path)
 
-
-def file_sha256(path: Path) -> str:
-    h = hashlib.sha256()
-    with open(path, "rb") as f:
-        for chunk in iter(lambda: f.read(1 << 20), b""):
-            h.update(chunk)
-    return h.hexdigest()
 
 
 def _check_io(path: Path, sess: ort.InferenceSession) -> tuple[str, str]:

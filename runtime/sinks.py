@@ -20,15 +20,53 @@ def display_available() -> bool:
     return "NONE" not in gui_line.upper()  # opencv-python-headless has no imshow
 
 
+def x11_screen_size() -> tuple[int, int] | None:
+    """The X screen's size through libX11 (None off X11 or without the library)."""
+    if not sys.platform.startswith("linux") or not os.environ.get("DISPLAY"):
+        return None
+    try:
+        import ctypes
+        x11 = ctypes.CDLL("libX11.so.6")
+        x11.XOpenDisplay.restype = ctypes.c_void_p
+        x11.XOpenDisplay.argtypes = [ctypes.c_char_p]
+        x11.XDefaultScreen.argtypes = [ctypes.c_void_p]
+        x11.XDisplayWidth.argtypes = [ctypes.c_void_p, ctypes.c_int]
+        x11.XDisplayHeight.argtypes = [ctypes.c_void_p, ctypes.c_int]
+        x11.XCloseDisplay.argtypes = [ctypes.c_void_p]
+        d = x11.XOpenDisplay(None)
+        if not d:
+            return None
+        try:
+            scr = x11.XDefaultScreen(d)
+            return int(x11.XDisplayWidth(d, scr)), int(x11.XDisplayHeight(d, scr))
+        finally:
+            x11.XCloseDisplay(d)
+    except (OSError, AttributeError):
+        return None
+
+
 class Window:
-    def __init__(self, fullscreen: bool = False) -> None:
-        cv2.namedWindow(WINDOW, cv2.WINDOW_NORMAL)  # WINDOW_NORMAL is needed for fullscreen
+    def __init__(self, fullscreen: bool = False, x: int = 0, y: int = 0, width: int = 0,
+                 height: int = 0) -> None:
+        # WINDOW_NORMAL is needed for fullscreen; GUI_NORMAL drops the toolbar (kiosk)
+        cv2.namedWindow(WINDOW, cv2.WINDOW_NORMAL | getattr(cv2, "WINDOW_GUI_NORMAL", 0))
+        if x or y:
+            cv2.moveWindow(WINDOW, x, y)  # onto the chosen monitor before going fullscreen
         if fullscreen:
             cv2.setWindowProperty(WINDOW, cv2.WND_PROP_FULLSCREEN, cv2.WINDOW_FULLSCREEN)
+            # A kiosk often runs on a bare X server with no window manager to honour the
+            # fullscreen request: size the window to the monitor ourselves.
+            size = (width, height) if width and height else x11_screen_size()
+            if size:
+                cv2.resizeWindow(WINDOW, *size)
+                cv2.moveWindow(WINDOW, x, y)
 
     def show(self, frame: np.ndarray) -> int:
         """Draw and return the key pressed (-1 for none); pollKey does not sleep."""
         cv2.imshow(WINDOW, frame)
+        return cv2.pollKey()
+
+    def poll(self) -> int:
         return cv2.pollKey()
 
     def close(self) -> None:

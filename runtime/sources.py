@@ -122,3 +122,43 @@ def open_source(spec: str | None, *, width: int = 1280, height: int = 720, fps: 
     if not cap.isOpened():
         raise SourceError(f"{spec}: cannot be read as a video")
     return CaptureSource(cap, str(path), False, loop)
+
+
+def apply_camera_locks(src: FrameSource, settings) -> None:
+    """Exposure and white-balance locks for cameras (no-ops for files and the demo clip).
+
+    Auto exposure makes a stylised image shimmer as the camera hunts; locking keeps the
+    value the camera settled on, or the one given."""
+    cap = getattr(src, "cap", None)
+    if cap is None or not getattr(src, "is_live", False) or "://" in getattr(src, "description", ""):
+        return
+    if settings.lock_exposure:
+        value = settings.exposure or cap.get(cv2.CAP_PROP_EXPOSURE)
+        cap.set(cv2.CAP_PROP_AUTO_EXPOSURE, 1)  # V4L2: 1 = manual, 3 = aperture priority (auto)
+        cap.set(cv2.CAP_PROP_EXPOSURE, value)
+    if settings.lock_white_balance:
+        value = settings.white_balance or cap.get(cv2.CAP_PROP_WB_TEMPERATURE)
+        cap.set(cv2.CAP_PROP_AUTO_WB, 0)
+        if value:
+            cap.set(cv2.CAP_PROP_WB_TEMPERATURE, value)
+
+
+def list_cameras(max_index: int = 8) -> list[str]:
+    """Cameras that open, with their names where the system tells them."""
+    found = []
+    if sys.platform.startswith("linux"):
+        for dev in camera_devices():
+            name_file = Path("/sys/class/video4linux") / Path(dev).name / "name"
+            name = name_file.read_text().strip() if name_file.exists() else "?"
+            cap = cv2.VideoCapture(dev, cv2.CAP_V4L2)
+            ok = cap.isOpened()
+            cap.release()
+            if ok:
+                found.append(f"{dev} (index {dev[10:]}): {name}")
+        return found
+    for i in range(max_index):
+        cap = cv2.VideoCapture(i)
+        if cap.isOpened():
+            found.append(f"index {i}")
+        cap.release()
+    return found

@@ -1,0 +1,155 @@
+"""A capture thread that keeps only the newest frame, detects stalls and unplugs,
+and reopens the source with exponential backoff.
+
+Each connection gets its own reader thread; when frames stop arriving for `stall_s`
+the connection is abandoned (its reader exits when its blocked read returns) and a
+new one is opened after a backoff delay. A file or clip that ends without looping
+ends the capture.
+"""
+from __future__ import annotations
+
+import logging
+import threading
+import time
+from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
+
+from .sources import FrameSource
+
+log = logging.getLogger("limner.capture")
+
+
+@dataclass
+class Frame:
+    seq: int
+    image: np.ndarray
+    t: float  # time.monotonic() when captured
+
+
+class Capture:
+    def __init__(self, opener: Callable[[], FrameSource], *, stall_s: float = 3.0,
+                 backoff_s: tuple[float, float] = (0.5, 8.0), pace_fps: float = 0.0) -> None:
+        self.opener, self.stall_s, self.backoff_s, self.pace_fps = opener, stall_s, backoff_s, pace_fps
+        self.cond = threading.Condition()
+        self.newest: Frame | None = None
+        self.seq = 0
+        self.state = "starting"  # starting | running | stalled | reconnecting | ended
+        self.reconnects = 0
+        self.description = ""
+        self._stop = threading.Event()
+        self._generation = 0
+        self._last_frame_t = time.monotonic()
+        self._source: FrameSource | None = None
+        self._supervisor = threading.Thread(target=self._supervise, name="capture-supervisor", daemon=True)
+
+    def start(self) -> "Capture":
+        self._supervisor.start()
+        return self
+
+    def stop(self) -> None:
+        self._stop.set()
+        with self.cond:
+            self.cond.notify_all()
+        self._supervisor.join(timeout=5)
+        self._release()
+
+    def _release(self) -> None:
+        src, self._source = self._source, None
+        if src is not None:
+            try:
+                src.release()
+            except Exception:  # a source being torn down from another thread
+                pass
+
+    def latest(self, after_seq: int, timeout: float) -> Frame | None:
+        """The newest frame with seq > after_seq, waiting up to `timeout` seconds."""
+        deadline = time.monotonic() + timeout
+        with self.cond:
+            while (self.newest is None or self.newest.seq <= after_seq) and self.state != "ended":
+                left = deadline - time.monotonic()
+                if left <= 0 or self._stop.is_set():
+                    return None
+                self.cond.wait(left)
+            return self.newest if self.newest is not None and self.newest.seq > after_seq else None
+
+    def _set_state(self, state: str) -> None:
+        if state != self.state:
+            log.info("capture %s: %s", self.description or "source", state)
+            self.state = state
+            with self.cond:
+                self.cond.notify_all()
+
+    def _supervise(self) -> None:
+        delay = self.backoff_s[0]
+        first = True
+        while not self._stop.is_set():
+            if not first:
+                self._set_state("reconnecting")
+                self.reconnects += 1
+                if self._stop.wait(delay):
+                    return
+                delay = min(delay * 2, self.backoff_s[1])
+            first = False
+            try:
+                src = self.opener()
+            except Exception as e:
+                log.warning("capture: cannot open source: %s", e)
+                continue
+            self._source = src
+            self.description = getattr(src, "description", "source")
+            self._generation += 1
+            gen = self._generation
+            self._last_frame_t = time.monotonic()
+            ended = threading.Event()
+            reader = threading.Thread(target=self._read, args=(src, gen, ended), name="capture-reader",
+                                      daemon=True)
+            reader.start()
+            while not self._stop.is_set():
+                if ended.wait(0.1):
+                    break
+                if time.monotonic() - self._last_frame_t > self.stall_s:
+                    log.warning("capture: no frame for %.1f s: stalled, reopening", self.stall_s)
+                    self._set_state("stalled")
+                    break
+                if self.state == "running":
+                    delay = self.backoff_s[0]  # healthy again: reset the backoff
+            self._generation += 1  # abandons the reader
+            if self.state == "ended":
+                self._release()
+                return
+            self._release()
+
+    def _read(self, src: FrameSource, gen: int, ended: threading.Event) -> None:
+        next_t = time.monotonic()
+        while gen == self._generation and not self._stop.is_set():
+            try:
+                ok, img = src.read()
+            except Exception as e:
+                log.warning("capture: read failed: %s", e)
+                ok, img = False, None
+            if gen != self._generation:
+                return
+            if not ok or img is None:
+                if not getattr(src, "is_live", True) and not getattr(src, "loop", False):
+                    self._set_state("ended")
+                else:
+                    log.warning("capture: source returned no frame (unplugged?)")
+                ended.set()
+                return
+            if self.pace_fps > 0:  # a file played like a camera
+                next_t += 1.0 / self.pace_fps
+                wait = next_t - time.monotonic()
+                if wait > 0:
+                    time.sleep(wait)
+                else:
+                    next_t = time.monotonic()
+            now = time.monotonic()
+            self._last_frame_t = now
+            with self.cond:
+                self.seq += 1
+                self.newest = Frame(self.seq, img, now)
+                if self.state != "running":
+                    self.state = "running"
+                self.cond.notify_all()

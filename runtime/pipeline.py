@@ -1,0 +1,273 @@
+"""The live pipeline: capture thread -> inference thread -> presenter (main thread).
+
+Each stage keeps only the newest item, so a slow stage drops frames instead of
+building a queue (latency stays bounded). onnxruntime releases the GIL while it runs.
+"""
+from __future__ import annotations
+
+import logging
+import signal
+import threading
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Callable
+
+import cv2
+import numpy as np
+
+from .capture_thread import Capture
+from .flash import FlashLimiter
+from .frames import crop_to_multiple
+from .governor import Governor
+from .playlist import Playlist, is_open
+from .present import holding_card, letterbox, present
+from .settings import ShowConfig
+from .sinks import VideoFile, Window
+from .sources import FrameSource
+from .unattended import Heartbeat, Snapshots, rss_mb
+
+log = logging.getLogger("limner.live")
+
+
+@dataclass
+class Output:
+    seq: int
+    image: np.ndarray
+    t_capture: float
+    t_done: float
+    size: tuple[int, int]
+
+
+@dataclass
+class LiveStats:
+    frames: int = 0
+    seconds: float = 0.0
+    latencies_ms: list[float] = field(default_factory=list)
+    first_frame_s: float = 0.0
+    rss_start_mb: float = 0.0
+    rss_end_mb: float = 0.0
+    reconnects: int = 0
+    resolution_changes: int = 0
+    output: str | None = None
+    sizes: dict[str, int] = field(default_factory=dict)
+
+    @property
+    def fps(self) -> float:
+        """Frames after the first, over the time since the first was shown."""
+        return (self.frames - 1) / self.seconds if self.seconds > 0 and self.frames > 1 else 0.0
+
+    def p(self, q: float) -> float:
+        return float(np.percentile(self.latencies_ms, q)) if self.latencies_ms else 0.0
+
+    def line(self) -> str:
+        size = max(self.sizes, key=self.sizes.get) if self.sizes else "?"
+        s = (f"processed {self.frames} frames in {self.seconds:.1f} s: {self.fps:.1f} fps end to end at "
+             f"{size}; capture-to-output latency p50 {self.p(50):.0f} ms, p95 {self.p(95):.0f} ms; "
+             f"first frame after {self.first_frame_s:.2f} s; RSS {self.rss_start_mb:.0f} -> "
+             f"{self.rss_end_mb:.0f} MB")
+        if self.reconnects:
+            s += f"; {self.reconnects} reconnect(s)"
+        return s + (f"; wrote {self.output}" if self.output else "")
+
+
+def prepare(frame: np.ndarray, size: tuple[int, int], multiple: int, fit: str) -> np.ndarray:
+    """Camera frame -> model input of (about) `size`, a multiple of `multiple` on each side."""
+    w, h = size
+    if fit == "letterbox":
+        x = letterbox(frame, w, h)
+    else:
+        fh, fw = frame.shape[:2]
+        k = max(w / fw, h / fh)
+        nw, nh = max(w, round(fw * k)), max(h, round(fh * k))
+        if (nw, nh) != (fw, fh):
+            frame = cv2.resize(frame, (nw, nh), interpolation=cv2.INTER_AREA if k < 1 else cv2.INTER_LINEAR)
+        y0, x0 = (nh - h) // 2, (nw - w) // 2
+        x = frame[y0:y0 + h, x0:x0 + w]
+    return np.ascontiguousarray(crop_to_multiple(x, multiple))
+
+
+class Live:
+    def __init__(self, show: ShowConfig, opener: Callable[[], FrameSource], *, max_frames: int = 0,
+                 window: Window | None = None, record: str | None = None, record_fps: float = 30.0) -> None:
+        self.show, self.max_frames = show, max_frames
+        self.t_start = time.monotonic()
+        inf, saf = show.inference, show.safety
+        self.playlist = Playlist(show.play, inf.threads, show.crossfade_s, saf.max_crossfade_step)
+        self.multiple = self.playlist.size_multiple()
+        self.capture = Capture(opener, stall_s=show.capture.stall_s, pace_fps=show.capture.pace_fps)
+        self.governor = Governor(inf.sizes(), inf.target_fps, enabled=inf.governor and not inf.resolution)
+        from limner.bench.color import ViewingGeometry
+        w0 = self.governor.ladder[-1][0]
+        ppd = ViewingGeometry(saf.display_width_m, saf.viewing_distance_m).pixels_per_degree(w0)
+        self.limiter = FlashLimiter(ppd, enabled=saf.flash_limit)
+        self.window = window
+        self.writer = VideoFile(Path(record), record_fps) if record else None
+        self.snapshots = Snapshots(show.output.snapshot_dir, show.output.snapshot_keep)
+        self.heartbeat = Heartbeat(show.output.heartbeat)
+        self.cond = threading.Condition()
+        self.newest: Output | None = None
+        self.stop = threading.Event()
+        self.snapshot_requested = threading.Event()
+        self.stats = LiveStats(rss_start_mb=rss_mb())
+        self.overlay = show.display.overlay
+        self._infer_thread = threading.Thread(target=self._infer_loop, name="inference", daemon=True)
+
+    # -- inference thread -------------------------------------------------------------
+    def _stylise(self, x: np.ndarray) -> np.ndarray:
+        pl = self.playlist
+        cur = pl.current
+        y = cur.model.run(x)
+        if pl.fade_from is not None and pl.fade < 1.0:
+            old = pl.loaded[pl.fade_from]
+            y_old = old.model.run(x)
+            y_old = _blend_strength(y_old, x, old.item.strength)
+            y = _blend_strength(y, x, cur.item.strength)
+            return cv2.addWeighted(y, pl.fade, y_old, 1.0 - pl.fade, 0.0)
+        return _blend_strength(y, x, cur.item.strength)
+
+    def _infer_loop(self) -> None:
+        seq, prev, last_t = 0, None, time.monotonic()
+        closed_card: np.ndarray | None = None
+        try:
+            while not self.stop.is_set():
+                if not is_open(self.show.hours):
+                    w, h = self.governor.ladder[-1]
+                    closed_card = holding_card(w, h, self.show.card_text, self.show.closed == "blank")
+                    self._publish(Output(seq, closed_card, time.monotonic(), time.monotonic(), (w, h)))
+                    self.stop.wait(1.0)
+                    continue
+                f = self.capture.latest(seq, timeout=0.25)
+                if f is None:
+                    if self.capture.state == "ended":
+                        break
+                    continue
+                seq = f.seq
+                t0 = time.perf_counter()
+                x = prepare(f.image, self.governor.size, self.multiple, self.show.inference.fit)
+                y = self._stylise(x)
+                a = self.show.inference.smoothing
+                if a > 0 and prev is not None and prev.shape == y.shape:
+                    y = cv2.addWeighted(y, 1.0 - a, prev, a, 0.0)
+                now = time.monotonic()
+                y = self.limiter(y, now)
+                prev = y
+                dt = time.perf_counter() - t0
+                self.governor.observe(dt, now)
+                self.playlist.tick(now, now - last_t)
+                last_t = now
+                self._publish(Output(seq, y, f.t, now, (y.shape[1], y.shape[0])))
+        except Exception:
+            log.exception("inference stopped")
+        finally:
+            with self.cond:
+                self.stop.set()
+                self.cond.notify_all()
+
+    def _publish(self, out: Output) -> None:
+        with self.cond:
+            self.newest = out
+            self.cond.notify_all()
+
+    # -- main thread --------------------------------------------------------------------
+    def _key(self, k: int) -> None:
+        if k in (ord("q"), 27):
+            self.stop.set()
+        elif k in (ord("n"), 83):   # n or right arrow
+            self.playlist.step(+1)
+        elif k in (ord("p"), 81):   # p or left arrow
+            self.playlist.step(-1)
+        elif k == ord("s"):
+            self.snapshot_requested.set()
+        elif k == ord("o"):
+            self.overlay = not self.overlay
+
+    def _trigger_file(self) -> None:
+        t = self.show.output.trigger_file
+        if t and Path(t).exists():
+            Path(t).unlink(missing_ok=True)
+            self.snapshot_requested.set()
+
+    def run(self) -> LiveStats:
+        old = {}
+
+        def on_stop(signum, frame):
+            self.stop.set()
+
+        def on_snap(signum, frame):
+            self.snapshot_requested.set()
+
+        if threading.current_thread() is threading.main_thread():
+            old = {s: signal.signal(s, on_stop) for s in (signal.SIGINT, signal.SIGTERM)}
+            if hasattr(signal, "SIGUSR1"):
+                old[signal.SIGUSR1] = signal.signal(signal.SIGUSR1, on_snap)
+        self.capture.start()
+        self._infer_thread.start()
+        shown_seq, t_first, t_begin = -1, None, None
+        last_stats = time.monotonic()
+        recent: list[float] = []
+        try:
+            while not self.stop.is_set():
+                with self.cond:
+                    if self.newest is None or self.newest.seq == shown_seq:
+                        self.cond.wait(0.05)
+                    out = self.newest
+                self.heartbeat.beat()
+                self._trigger_file()
+                if out is not None and out.seq != shown_seq:
+                    shown_seq = out.seq
+                    now = time.monotonic()
+                    if t_first is None:
+                        t_first = t_begin = now
+                        self.stats.first_frame_s = now - self.t_start
+                    self.stats.frames += 1
+                    self.stats.latencies_ms.append((now - out.t_capture) * 1000)
+                    key = f"{out.size[0]}x{out.size[1]}"
+                    self.stats.sizes[key] = self.stats.sizes.get(key, 0) + 1
+                    recent.append(now)
+                    if self.writer:
+                        self.writer.write(out.image)
+                    if self.snapshot_requested.is_set():
+                        self.snapshot_requested.clear()
+                        self.snapshots.take(out.image)
+                    if self.window:
+                        text = None
+                        if self.overlay:
+                            fps = len([t for t in recent if now - t < 1.0])
+                            text = f"{fps} fps  {out.size[0]}x{out.size[1]}"
+                        self._key(self.window.show(present(out.image, self.show.display, text)))
+                    recent = [t for t in recent if now - t < 1.0]
+                    if self.max_frames and self.stats.frames >= self.max_frames:
+                        break
+                elif self.window:
+                    self._key(self.window.poll())  # keep the last good output on screen
+                if time.monotonic() - last_stats >= self.show.output.stats_every_s:
+                    last_stats = time.monotonic()
+                    lat = self.stats.latencies_ms[-300:]
+                    log.info("stats: %.1f fps, latency p95 %.0f ms, size %s, capture %s, RSS %.0f MB",
+                             len([t for t in recent if last_stats - t < 1.0]),
+                             float(np.percentile(lat, 95)) if lat else 0.0,
+                             "x".join(map(str, self.governor.size)), self.capture.state, rss_mb())
+        finally:
+            end = time.monotonic()
+            self.stop.set()
+            self._infer_thread.join(timeout=5)
+            self.capture.stop()
+            if self.writer:
+                self.writer.close()
+                self.stats.output = str(self.writer.path)
+            if self.window:
+                self.window.close()
+            for s, h in old.items():
+                signal.signal(s, h)
+            self.stats.seconds = (end - t_begin) if t_begin else 0.0
+            self.stats.rss_end_mb = rss_mb()
+            self.stats.reconnects = self.capture.reconnects
+            self.stats.resolution_changes = self.governor.changes
+        return self.stats
+
+
+def _blend_strength(y: np.ndarray, x: np.ndarray, strength: float) -> np.ndarray:
+    if strength >= 1.0:
+        return y
+    return cv2.addWeighted(y, strength, x, 1.0 - strength, 0.0)
