@@ -17,7 +17,7 @@ from pathlib import Path
 
 import numpy as np
 import onnx
-from onnx import numpy_helper, shape_inference
+from onnx import shape_inference
 from onnxruntime.quantization import (CalibrationDataReader, CalibrationMethod, QuantFormat,
                                       QuantType, quant_pre_process, quantize_static)
 

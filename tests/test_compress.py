@@ -5,7 +5,6 @@ from __future__ import annotations
 import json
 import subprocess
 from dataclasses import asdict
-from pathlib import Path
 
 import numpy as np
 import onnx

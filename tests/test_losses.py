@@ -6,7 +6,7 @@ import torch
 import torch.nn.functional as F
 
 from limner.compress.losses import content_loss, gram, style_loss_layer
-from limner.compress.lossnet import LossNetError, VGG16Features, build_loss_net
+from limner.compress.lossnet import LossNetError, build_loss_net
 
 
 def test_gram_of_hand_worked_feature_map():

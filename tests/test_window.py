@@ -9,7 +9,6 @@ import subprocess
 import time
 
 import cv2
-import numpy as np
 import pytest
 
 from limner.bench.metrics import ssim
