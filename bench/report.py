@@ -29,13 +29,18 @@ def quality_value(row: dict, axis: str) -> float:
 def flat_rows(rep: dict) -> list[dict]:
     out = []
     teacher = next(r for r in rep["models"] if r["is_teacher"])
+    by_sha = {r["sha256"]: r for r in rep["models"]}
     for r in rep["models"]:
+        parent = by_sha.get(r.get("parent", "")) if r["precision"] == "int8" else None
         for s in r["speed"]:
             t = speed_at(teacher, s["resolution"], s["threads"])
+            ps = speed_at(parent, s["resolution"], s["threads"]) if parent else None
             f = r["fidelity"] or {}
             row = {"name": r["name"], "path": r["path"], "role": r["role"], "precision": r["precision"],
                    "resolution": s["resolution"], "threads": s["threads"],
                    "fps": round(s["fps"], 2), "speedup": round(s["fps"] / t["fps"], 2) if t else "",
+                   # an int8 model's speed against its own fp32 parent: below 1 means slower
+                   "vs_parent": round(s["fps"] / ps["fps"], 2) if ps else "",
                    "p50_ms": round(s["p50_ms"], 2), "p95_ms": round(s["p95_ms"], 2),
                    "p99_ms": round(s["p99_ms"], 2), "load_s": round(s["load_s"], 3),
                    "peak_rss_mb": round(r["peak_rss_mb"], 1), "size_mb": round(r["size_bytes"] / 1e6, 2)}
@@ -52,15 +57,17 @@ def flat_rows(rep: dict) -> list[dict]:
 def _md_table(rep: dict, resolution: str) -> list[str]:
     floor = rep["floor"]
     lines = [f"### {resolution}", "",
-             "| model | precision | fps | x teacher | p50 ms | p95 ms | MS-SSIM mean / worst | SSIM mean "
-             "| PSNR dB | S-CIELAB dE00 mean / worst | own noise MS-SSIM | warp error | RSS MB |",
-             "|---|---|---|---|---|---|---|---|---|---|---|---|---|"]
+             "| model | precision | fps | x teacher | int8 x fp32 parent | p50 ms | p95 ms | MS-SSIM mean / worst "
+             "| SSIM mean | PSNR dB | S-CIELAB dE00 mean / worst | own noise MS-SSIM | warp error | RSS MB |",
+             "|---|---|---|---|---|---|---|---|---|---|---|---|---|---|"]
     for r in flat_rows(rep):
         if r["resolution"] != resolution:
             continue
         q = (lambda k, w=True: "—" if r[f"{k}_mean"] == "" else
              (f"{r[f'{k}_mean']:.3f} / {r[f'{k}_worst']:.3f}" if w else f"{r[f'{k}_mean']:.3f}"))
-        lines.append(f"| {r['name']} | {r['precision']} | {r['fps']:.1f} | {r['speedup']} | {r['p50_ms']:.1f} "
+        vp = r["vs_parent"]
+        vp = "—" if vp == "" else (f"{vp} (slower)" if vp < 1 else str(vp))
+        lines.append(f"| {r['name']} | {r['precision']} | {r['fps']:.1f} | {r['speedup']} | {vp} | {r['p50_ms']:.1f} "
                      f"| {r['p95_ms']:.1f} | {q('ms_ssim')} | {q('ssim', False)} | {q('psnr', False)} "
                      f"| {q('delta_e')} | {r['noise_ms_ssim']:.3f} | {r['warp_error']} | {r['peak_rss_mb']:.0f} |")
     lines += ["", f"Teacher's own noise floor (its output for noisy input, sigma {rep['noise_sigma']}, "

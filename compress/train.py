@@ -10,7 +10,7 @@ import csv
 import hashlib
 import signal
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, fields
 from pathlib import Path
 
 import cv2
@@ -152,8 +152,11 @@ def train(style: str, content: list[str], out: Path, cfg: TrainConfig, *,
             raise TrainError(f"{ckpt_path} exists: pass --resume to continue it, or choose another -o")
         state = ckptmod.load(ckpt_path)
         saved = cfgmod.from_dict(TrainConfig, state.meta["config"])
-        if saved.steps != cfg.steps:  # the one setting a resume may change
-            saved.steps = cfg.steps
+        for f in fields(TrainConfig):  # a resume keeps the run's settings; steps and threads may change
+            if f.name not in ("steps", "threads") and getattr(cfg, f.name) != getattr(saved, f.name):
+                print(f"resume keeps the saved {f.name} = {getattr(saved, f.name)!r} "
+                      f"(ignoring {getattr(cfg, f.name)!r})", flush=True)
+        saved.steps, saved.threads = cfg.steps, cfg.threads
         cfg = saved
         start_step = int(state.train_state["step"])
         seconds_before = float(state.train_state.get("seconds", 0.0))
