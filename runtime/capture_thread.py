@@ -41,7 +41,7 @@ class Capture:
         self._stop = threading.Event()
         self._generation = 0
         self._last_frame_t = time.monotonic()
-        self._source: FrameSource | None = None
+        self._reader: threading.Thread | None = None
         self._supervisor = threading.Thread(target=self._supervise, name="capture-supervisor", daemon=True)
 
     def start(self) -> "Capture":
@@ -49,19 +49,16 @@ class Capture:
         return self
 
     def stop(self) -> None:
+        """Stop and release the source. The reader owns its source and releases it when
+        its read returns: releasing a capture from another thread mid-read can crash
+        OpenCV. A reader stuck in a hung driver is left behind (daemon thread)."""
         self._stop.set()
+        self._generation += 1
         with self.cond:
             self.cond.notify_all()
         self._supervisor.join(timeout=5)
-        self._release()
-
-    def _release(self) -> None:
-        src, self._source = self._source, None
-        if src is not None:
-            try:
-                src.release()
-            except Exception:  # a source being torn down from another thread
-                pass
+        if self._reader is not None:
+            self._reader.join(timeout=3)
 
     def latest(self, after_seq: int, timeout: float) -> Frame | None:
         """The newest frame with seq > after_seq, waiting up to `timeout` seconds."""
@@ -97,7 +94,6 @@ class Capture:
             except Exception as e:
                 log.warning("capture: cannot open source: %s", e)
                 continue
-            self._source = src
             self.description = getattr(src, "description", "source")
             self._generation += 1
             gen = self._generation
@@ -105,6 +101,7 @@ class Capture:
             ended = threading.Event()
             reader = threading.Thread(target=self._read, args=(src, gen, ended), name="capture-reader",
                                       daemon=True)
+            self._reader = reader
             reader.start()
             while not self._stop.is_set():
                 if ended.wait(0.1):
@@ -115,13 +112,20 @@ class Capture:
                     break
                 if self.state == "running":
                     delay = self.backoff_s[0]  # healthy again: reset the backoff
-            self._generation += 1  # abandons the reader
+            self._generation += 1  # abandons the reader; it releases its source when its read returns
             if self.state == "ended":
-                self._release()
                 return
-            self._release()
 
     def _read(self, src: FrameSource, gen: int, ended: threading.Event) -> None:
+        try:
+            self._read_loop(src, gen, ended)
+        finally:
+            try:
+                src.release()
+            except Exception as e:  # a driver that died with the device
+                log.warning("capture: release failed: %s", e)
+
+    def _read_loop(self, src: FrameSource, gen: int, ended: threading.Event) -> None:
         next_t = time.monotonic()
         while gen == self._generation and not self._stop.is_set():
             try:

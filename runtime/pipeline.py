@@ -251,7 +251,9 @@ class Live:
         finally:
             end = time.monotonic()
             self.stop.set()
-            self._infer_thread.join(timeout=5)
+            # let the current inference finish: tearing down onnxruntime under a running
+            # session crashes the process
+            self._infer_thread.join(timeout=120)
             self.capture.stop()
             if self.writer:
                 self.writer.close()

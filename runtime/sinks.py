@@ -9,6 +9,10 @@ import cv2
 import numpy as np
 
 WINDOW = "limner"
+# Qt's X11 shared-memory images intermittently left the window black on Xvfb (measured
+# here: 2 of 6 starts without this, 8 of 8 with it); plain X11 puts cost little at
+# camera resolutions. Set before the first window is created.
+os.environ.setdefault("QT_X11_NO_MITSHM", "1")
 
 
 def display_available() -> bool:
