@@ -49,6 +49,9 @@ def atomic_write_bytes(path: Path, write: Any) -> None:
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes 0600; outputs get the usual permissions
         with os.fdopen(fd, "wb") as f:
             write(f)
             f.flush()

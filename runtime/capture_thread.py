@@ -1,6 +1,10 @@
 """A capture thread that keeps only the newest frame, detects stalls and unplugs,
 and reopens the source with exponential backoff.
 
+Cameras and streams drop frames the consumer had no time for (latency stays bounded).
+A file or the demo clip played without pacing is lossless instead: each frame waits
+until the previous one was taken, so every frame of the clip is processed.
+
 Each connection gets its own reader thread; when frames stop arriving for `stall_s`
 the connection is abandoned (its reader exits when its blocked read returns) and a
 new one is opened after a backoff delay. A file or clip that ends without looping
@@ -35,6 +39,7 @@ class Capture:
         self.cond = threading.Condition()
         self.newest: Frame | None = None
         self.seq = 0
+        self.taken = 0            # the newest seq handed to the consumer
         self.state = "starting"  # starting | running | stalled | reconnecting | ended
         self.reconnects = 0
         self.description = ""
@@ -69,7 +74,11 @@ class Capture:
                 if left <= 0 or self._stop.is_set():
                     return None
                 self.cond.wait(left)
-            return self.newest if self.newest is not None and self.newest.seq > after_seq else None
+            if self.newest is not None and self.newest.seq > after_seq:
+                self.taken = self.newest.seq
+                self.cond.notify_all()
+                return self.newest
+            return None
 
     def _set_state(self, state: str) -> None:
         if state != self.state:
@@ -127,7 +136,13 @@ class Capture:
 
     def _read_loop(self, src: FrameSource, gen: int, ended: threading.Event) -> None:
         next_t = time.monotonic()
+        lossless = self.pace_fps <= 0 and not getattr(src, "is_live", True)
         while gen == self._generation and not self._stop.is_set():
+            if lossless:
+                with self.cond:
+                    while self.taken < self.seq and gen == self._generation and not self._stop.is_set():
+                        self.cond.wait(0.1)
+                        self._last_frame_t = time.monotonic()  # waiting on the consumer is no stall
             try:
                 ok, img = src.read()
             except Exception as e:
