@@ -25,7 +25,7 @@ $(VENV)/.dev: $(VENV)/.core pyproject.toml
 	touch $@
 
 demo: $(VENV)/.core
-	$(VENV)/bin/limner live --source demo --frames $(DEMO_FRAMES) --output out/demo-stylized.mp4
+	$(VENV)/bin/limner live --source demo --frames $(DEMO_FRAMES) --resolution 640x360 --output out/demo-stylized.mp4
 
 test: $(VENV)/.dev
 	$(PY) -m pytest -q

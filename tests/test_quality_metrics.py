@@ -14,7 +14,8 @@ from limner.bench.color import (ViewingGeometry, ciede2000, scielab_delta_e, sci
 from limner.bench.metrics import ms_ssim, psnr, ssim
 from limner.bench.stability import warp_error
 
-SHARMA = Path(__file__).resolve().parents[2] / "shared" / "reference" / "ciede2000_sharma2005.csv"
+# Published test data (Sharma, Wu & Dalal 2005, Table 1), kept with its citation header
+SHARMA = Path(__file__).resolve().parent / "data" / "ciede2000_sharma2005.csv"
 
 
 def _degraded(img: np.ndarray, seed: int) -> np.ndarray:
