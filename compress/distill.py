@@ -73,6 +73,8 @@ class DistillLoss:
         out: dict[str, torch.Tensor] = {}
         if w.pixel_l1:
             out["pixel_l1"] = (y - t).abs().mean()
+        if w.lowpass_l1:
+            out["lowpass_l1"] = (F.avg_pool2d(y, 4) - F.avg_pool2d(t, 4)).abs().mean()
         if w.ms_ssim:
             out["ms_ssim"] = 1.0 - ms_ssim(y, t)
         if w.color_stats:
@@ -94,9 +96,9 @@ class DistillLoss:
         return out
 
     def total(self, terms: dict[str, torch.Tensor]) -> tuple[torch.Tensor, dict[str, float]]:
-        if not self.scale:
-            self.scale = {k: (float(v.detach()) if self.w.normalize and float(v.detach()) > 0 else 1.0)
-                          for k, v in terms.items()}
+        for k, v in terms.items():  # first batch (or a term added to a resumed run)
+            if k not in self.scale:
+                self.scale[k] = float(v.detach()) if self.w.normalize and float(v.detach()) > 0 else 1.0
         total = sum(getattr(self.w, k) * v / self.scale[k] for k, v in terms.items())
         return total, {k: float(v.detach()) for k, v in terms.items()} | {"total": float(total.detach())}
 

@@ -14,6 +14,7 @@ INT_TYPES = ("auto", "u8s8", "u8s8-reduced", "s8s8")
 class LossWeights:
     """Distillation terms (each divided by its value on the first batch when `normalize`)."""
     pixel_l1: float = 1.0          # structure, per pixel
+    lowpass_l1: float = 0.0        # L1 of 4x4-averaged outputs: colour and shading without texture phase
     ms_ssim: float = 1.0           # multi-scale structure (1 - MS-SSIM, 3 scales at 160 px crops)
     feature: float = 1.0           # loss-network features of student vs teacher output (relu2_2, relu3_3)
     gram: float = 1.0              # texture: Gram matrices of both outputs (relu1_2 .. relu4_3)

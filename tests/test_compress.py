@@ -26,6 +26,9 @@ cache_crops = 12
 checkpoint_every = 5
 threads = 2
 
+[loss]
+lowpass_l1 = 1.0
+
 [[student]]
 name = "a"
 knobs = {width = 0.25, blocks = 1, kernel_in = 3, kernel_out = 3, downscale = 2, upsample = "shuffle"}
