@@ -117,8 +117,9 @@ def pick(report: str | Path, *, min_fps: float | None = None, min_ms_ssim=None, 
              + ", ".join(f"{AXES[k].key} {'>=' if AXES[k].higher else '<='} {active[k]:.4g}" for k in active),
              "nearest misses:"]
     for k in active:
-        others = [(r, v) for r, v in rows if all(ok(v[j], j) for j in active if j != k) and v[k] is not None]
-        pool = others or [(r, v) for r, v in rows if v[k] is not None]
+        failing = [(r, v) for r, v in rows if v[k] is not None and not ok(v[k], k)]
+        others = [(r, v) for r, v in failing if all(ok(v[j], j) for j in active if j != k)]
+        pool = others or failing
         if not pool:
             continue
         r, v = (max if AXES[k].higher else min)(pool, key=lambda rv: rv[1][k])
