@@ -14,10 +14,10 @@ from pathlib import Path
 import cv2
 import numpy as np
 
+from limner.bench.prepare import IMAGE_EXTS
 from limner.runtime.scenes import scene
 from limner.runtime.hashing import file_sha256  # noqa: F401  (re-exported)
 
-IMAGE_EXTS = {".jpg", ".jpeg", ".png", ".bmp", ".tif", ".tiff", ".webp"}
 VIDEO_EXTS = {".mp4", ".avi", ".mov", ".mkv", ".webm", ".m4v"}
 
 

@@ -13,14 +13,3 @@ def crop_to_multiple(frame: np.ndarray, multiple: int) -> np.ndarray:
     y, x = (h - nh) // 2, (w - nw) // 2
     return frame[y:y + nh, x:x + nw]
 
-
-def centre_crop_aspect(frame: np.ndarray, width: int, height: int) -> np.ndarray:
-    """Centre-crop to the aspect ratio width:height (a view)."""
-    h, w = frame.shape[:2]
-    if w * height > h * width:      # too wide
-        nw = h * width // height
-        x = (w - nw) // 2
-        return frame[:, x:x + nw]
-    nh = w * height // width
-    y = (h - nh) // 2
-    return frame[y:y + nh]
