@@ -139,14 +139,33 @@ def sample_batch(cs: ContentSet, rng: np.random.Generator, batch: int, size: int
         crop = img[y:y + side, x:x + side]
         crop = cv2.resize(crop, (size, size), interpolation=cv2.INTER_AREA if side > size else cv2.INTER_LINEAR)
         if jitter:
-            if rng.random() < 0.5:
-                crop = crop[:, ::-1]
-            f = crop.astype(np.float32)
-            gain = rng.uniform(0.85, 1.15)          # brightness / contrast
-            bias = rng.uniform(-12, 12)
-            grey = f.mean(axis=2, keepdims=True)
-            sat = rng.uniform(0.8, 1.2)             # saturation
-            f = (grey + (f - grey) * sat) * gain + bias
-            crop = np.clip(f, 0, 255).astype(np.uint8)
+            crop = _jitter(crop, rng)
         out[b] = crop[:, :, ::-1]  # BGR -> RGB
     return out
+
+
+def _jitter(img: np.ndarray, rng: np.random.Generator) -> np.ndarray:
+    """Flip, brightness / contrast and saturation jitter of a BGR uint8 image."""
+    if rng.random() < 0.5:
+        img = img[:, ::-1]
+    f = img.astype(np.float32)
+    gain = rng.uniform(0.85, 1.15)          # brightness / contrast
+    bias = rng.uniform(-12, 12)
+    grey = f.mean(axis=2, keepdims=True)
+    sat = rng.uniform(0.8, 1.2)             # saturation
+    f = (grey + (f - grey) * sat) * gain + bias
+    return np.clip(f, 0, 255).astype(np.uint8)
+
+
+def sample_frame(cs: ContentSet, rng: np.random.Generator, width: int, height: int) -> np.ndarray:
+    """A camera-like frame: a random window of the frame's aspect (50-100% of the
+    largest that fits), resized to width x height, jittered -> (height, width, 3) uint8 BGR."""
+    img = cs.items[int(rng.integers(len(cs.items)))].image
+    h, w = img.shape[:2]
+    k = min(w / width, h / height) * rng.uniform(0.5, 1.0)
+    ww, wh = max(1, round(width * k)), max(1, round(height * k))
+    y = int(rng.integers(0, h - wh + 1))
+    x = int(rng.integers(0, w - ww + 1))
+    win = img[y:y + wh, x:x + ww]
+    interp = cv2.INTER_AREA if ww > width else cv2.INTER_LINEAR
+    return np.ascontiguousarray(_jitter(cv2.resize(win, (width, height), interpolation=interp), rng))

@@ -85,6 +85,19 @@ def _calibration_frames(data: ContentSet, n: int, side: int, mult: int, seed: in
     return frames
 
 
+def _init_from(path: str, fresh: torch.nn.Module, name: str) -> torch.nn.Module:
+    """A student checkpoint to start distillation from (e.g. one distilled with other
+    targets); its architecture must be the one the recipe's knobs build."""
+    try:
+        net = ckptmod.load(Path(path)).model()
+    except ckptmod.CheckpointError as e:
+        raise CompressError(f"student {name}: init: {e}") from None
+    if net.model_args != fresh.model_args:
+        raise CompressError(f"student {name}: init={path} holds a different architecture "
+                            f"({net.model_args.get('knobs')}) than the recipe's knobs")
+    return net.train()
+
+
 def compress(teacher: str, content: list[str], recipe: Recipe, out: Path) -> dict:
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
@@ -146,8 +159,11 @@ def compress(teacher: str, content: list[str], recipe: Recipe, out: Path) -> dic
             log(f"{spec.name}: done earlier, skipped")
             continue
         t0 = time.monotonic()
-        net = build("student", **spec.knobs)
         entry = {**asdict(spec), "role": "student", "parent": teacher_sha}
+        net = build("student", **spec.knobs)
+        if spec.init:
+            net = _init_from(spec.init, net, spec.name)
+            entry["init_sha256"] = file_sha256(Path(spec.init))
         net, info = distill(net, cache, recipe, spec.steps, spec.lr, lossnet, out / "work" / spec.name,
                             f"distill {spec.name}", {"name": spec.name})
         path = export_model(net, base_meta(spec.name, "student", teacher_sha, entry), out / f"{spec.name}.onnx")

@@ -39,6 +39,7 @@ class StudentSpec:
     knobs: dict = field(default_factory=dict)
     steps: int = 2000
     lr: float = 1e-3
+    init: str = ""                 # optional student checkpoint (same knobs) to start from
 
     def __post_init__(self) -> None:
         StudentKnobs(**self.knobs)  # validates knob names and values
@@ -88,6 +89,8 @@ class Recipe:
     crop: int = 160
     batch: int = 8
     cache_crops: int = 1500        # teacher targets computed once, reused by every student
+    target_frame: str = "640x360"  # teacher styles whole frames of this size ("" = each crop alone)
+    crops_per_frame: int = 8
     seed: int = 0
     threads: int = 0
     checkpoint_every: int = 100
@@ -104,6 +107,12 @@ class Recipe:
     def __post_init__(self) -> None:
         if self.crop % 16 or self.crop < 64:
             raise ValueError(f"crop={self.crop}: must be a multiple of 16, at least 64")
+        if self.target_frame:
+            w, h = self.frame_size()
+            if min(w, h) < self.crop:
+                raise ValueError(f"target_frame={self.target_frame!r}: smaller than crop={self.crop}")
+        if self.crops_per_frame < 1:
+            raise ValueError(f"crops_per_frame={self.crops_per_frame}: must be at least 1")
         names = [s.name for s in self.student] + [p.name for p in self.prune]
         dup = {n for n in names if names.count(n) > 1}
         if dup:
@@ -118,3 +127,12 @@ class Recipe:
         if not 0 <= self.calibration_fraction < 1 or not 0 <= self.held_out_fraction < 1 or \
                 self.calibration_fraction + self.held_out_fraction >= 1:
             raise ValueError("calibration_fraction + held_out_fraction must leave sources for distillation")
+
+    def frame_size(self) -> tuple[int, int]:
+        try:
+            w, h = (int(v) for v in self.target_frame.lower().split("x"))
+        except ValueError:
+            raise ValueError(f"target_frame={self.target_frame!r}: expected WIDTHxHEIGHT, e.g. 640x360") from None
+        if w % 8 or h % 8 or w < 64 or h < 64:
+            raise ValueError(f"target_frame={self.target_frame!r}: sides must be multiples of 8, at least 64")
+        return w, h

@@ -23,6 +23,8 @@ PHOTOS = [str(REPO / "runtime/assets/photos" / f"{n}.jpg") for n in ("astronaut"
 TINY_RECIPE = """crop = 64
 batch = 2
 cache_crops = 12
+target_frame = "160x96"
+crops_per_frame = 4
 checkpoint_every = 5
 threads = 2
 
@@ -91,6 +93,33 @@ def test_pruning_ratio_within_five_percent(ratio):
     assert abs(achieved - ratio) <= 0.05
 
 
+def test_cached_targets_are_crops_of_whole_frame_outputs(teacher_onnx, tmp_path):
+    """Frame-context targets: each cached target equals the same crop of the teacher's
+    output for the whole frame, run again here through onnxruntime (the reference runtime);
+    the crop offsets sit on the students' 8-pixel grid."""
+    from limner.compress.content import load_content, sample_frame
+    from limner.compress.distill import build_cache
+    from limner.compress.recipe import Recipe
+
+    recipe = Recipe(crop=64, cache_crops=6, target_frame="160x96", crops_per_frame=3)
+    data = load_content(PHOTOS, min_side=64)
+    teacher = load_model(teacher_onnx, threads=1)
+    cache = build_cache(teacher, data, recipe, tmp_path / "cache.npz")
+    for f in range(2):
+        frame = sample_frame(data, np.random.default_rng([recipe.seed, 7919, f]), 160, 96)
+        out = teacher.run(frame)
+        for i in range(3 * f, 3 * f + 3):
+            rgb = cache["inputs"][i]
+            hits = [(y, x) for y in range(0, 96 - 64 + 1, 8) for x in range(0, 160 - 64 + 1, 8)
+                    if np.array_equal(frame[y:y + 64, x:x + 64, ::-1], rgb)]
+            assert hits, "cached input is not an 8-aligned crop of its frame"
+            y, x = hits[0]
+            assert np.array_equal(cache["targets"][i], out[y:y + 64, x:x + 64, ::-1])
+    # a changed recipe rebuilds the cache instead of reusing stale targets
+    other = build_cache(teacher, data, Recipe(crop=64, cache_crops=6, target_frame=""), tmp_path / "cache.npz")
+    assert not np.array_equal(other["inputs"], cache["inputs"])
+
+
 @pytest.fixture(scope="module")
 def tiny_run(teacher_onnx, tmp_path_factory):
     out = tmp_path_factory.mktemp("compress")
@@ -157,3 +186,20 @@ def test_rerun_skips_finished_candidates(tiny_run, teacher_onnx):
                        capture_output=True, text=True, timeout=600)
     assert r.returncode == 0
     assert r.stdout.count("done earlier, skipped") == 5
+
+
+def test_student_init_checkpoint_must_match_knobs(tmp_path):
+    from limner.compress import checkpoint as ck
+    from limner.compress.pipeline import CompressError, _init_from
+
+    knobs = asdict(PRESETS["s-tiny"])
+    torch.manual_seed(0)
+    net = build("student", **knobs)
+    ck.save(ck.from_model(net, {"name": "tiny"}), tmp_path / "tiny.pt")
+    same = _init_from(str(tmp_path / "tiny.pt"), build("student", **knobs), "tiny")
+    for a, b in zip(net.state_dict().values(), same.state_dict().values()):
+        assert torch.equal(a, b)
+    with pytest.raises(CompressError, match="different architecture"):
+        _init_from(str(tmp_path / "tiny.pt"), build("student", **asdict(PRESETS["s-dw"])), "dw")
+    with pytest.raises(CompressError, match="no such checkpoint"):
+        _init_from(str(tmp_path / "missing.pt"), net, "tiny")
