@@ -47,38 +47,69 @@ def build_cache(teacher: Model, data: ContentSet, recipe: Recipe, path: Path) ->
     n, c = recipe.cache_crops, recipe.crop
     key = f"{recipe.target_frame or 'crop'}:{recipe.crops_per_frame}:{recipe.seed}"
     if path.exists():
-        z = np.load(path)
+        z = dict(np.load(path))
         if z["inputs"].shape[0] == n and z["inputs"].shape[1] == c and str(z.get("key", "")) == key:
-            return {"inputs": z["inputs"], "targets": z["targets"]}
-    inputs = np.empty((n, c, c, 3), np.uint8)
-    targets = np.empty_like(inputs)
+            if recipe.target_frame and "frames" not in z:  # caches written before frames were kept
+                z["frames"], z["frame_index"] = _regenerate_frames(data, recipe, z["inputs"])
+                _save(path, z)
+            return z
+    z = {"inputs": np.empty((n, c, c, 3), np.uint8), "key": np.array(key)}
+    z["targets"] = np.empty_like(z["inputs"])
     if recipe.target_frame:
         w, h = recipe.frame_size()
         per = recipe.crops_per_frame
-        bar = Progress((n + per - 1) // per, f"teacher targets ({w}x{h} frames)")
-        for f in range((n + per - 1) // per):
-            rng = np.random.default_rng([recipe.seed, 7919, f])
-            frame = sample_frame(data, rng, w, h)            # (h, w, 3) BGR
+        nf = (n + per - 1) // per
+        z["frames"] = np.empty((nf, h, w, 3), np.uint8)             # RGB
+        z["frame_index"] = np.arange(n, dtype=np.int32) // per
+        bar = Progress(nf, f"teacher targets ({w}x{h} frames)")
+        for f, (frame, offsets) in enumerate(_frames(data, recipe, nf, w, h)):
             out = teacher.run(frame)
-            for i in range(f * per, min(n, (f + 1) * per)):
-                y = 8 * int(rng.integers(0, (h - c) // 8 + 1))
-                x = 8 * int(rng.integers(0, (w - c) // 8 + 1))
-                inputs[i] = frame[y:y + c, x:x + c, ::-1]   # -> RGB
-                targets[i] = out[y:y + c, x:x + c, ::-1]
+            z["frames"][f] = frame[:, :, ::-1]
+            for i, (y, x) in zip(range(f * per, min(n, (f + 1) * per)), offsets):
+                z["inputs"][i] = frame[y:y + c, x:x + c, ::-1]       # -> RGB
+                z["targets"][i] = out[y:y + c, x:x + c, ::-1]
             bar.update(1)
     else:
         bar = Progress(n, "teacher targets")
         for i in range(n):
             rgb = sample_batch(data, np.random.default_rng([recipe.seed, 7919, i]), 1, c)[0]
-            inputs[i] = rgb
-            targets[i] = teacher.run(np.ascontiguousarray(rgb[:, :, ::-1]))[:, :, ::-1]
+            z["inputs"][i] = rgb
+            z["targets"][i] = teacher.run(np.ascontiguousarray(rgb[:, :, ::-1]))[:, :, ::-1]
             bar.update(1)
     bar.close()
+    _save(path, z)
+    return z
 
+
+def _frames(data: ContentSet, recipe: Recipe, count: int, w: int, h: int):
+    """Deterministic frames (BGR) and, for each, its crop offsets on the 8-pixel grid."""
+    c, per = recipe.crop, recipe.crops_per_frame
+    for f in range(count):
+        rng = np.random.default_rng([recipe.seed, 7919, f])
+        frame = sample_frame(data, rng, w, h)            # (h, w, 3) BGR
+        offsets = [(8 * int(rng.integers(0, (h - c) // 8 + 1)), 8 * int(rng.integers(0, (w - c) // 8 + 1)))
+                   for _ in range(per)]
+        yield frame, offsets
+
+
+def _regenerate_frames(data: ContentSet, recipe: Recipe, inputs: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Rebuild the frames of an older cache from the same seeds; every crop must match."""
+    w, h = recipe.frame_size()
+    n, c, per = inputs.shape[0], recipe.crop, recipe.crops_per_frame
+    nf = (n + per - 1) // per
+    frames = np.empty((nf, h, w, 3), np.uint8)
+    for f, (frame, offsets) in enumerate(_frames(data, recipe, nf, w, h)):
+        frames[f] = frame[:, :, ::-1]
+        for i, (y, x) in zip(range(f * per, min(n, (f + 1) * per)), offsets):
+            if not np.array_equal(frames[f, y:y + c, x:x + c], inputs[i]):
+                raise RuntimeError("teacher-target cache does not match its content set; delete it to rebuild")
+    return frames, np.arange(n, dtype=np.int32) // per
+
+
+def _save(path: Path, z: dict[str, np.ndarray]) -> None:
     def write(f):
-        np.savez(f, inputs=inputs, targets=targets, key=np.array(key))
+        np.savez(f, **z)
     atomic_write_bytes(path, write)
-    return {"inputs": inputs, "targets": targets}
 
 
 def _t(batch: np.ndarray) -> torch.Tensor:
@@ -92,10 +123,13 @@ class DistillLoss:
         self.scale: dict[str, float] = {}
 
     def terms(self, student: nn.Module, x: torch.Tensor, t: torch.Tensor,
-              noise: torch.Tensor) -> dict[str, torch.Tensor]:
+              noise: torch.Tensor, frame: torch.Tensor | None = None) -> dict[str, torch.Tensor]:
         # x: input, t: teacher output, noise: same shape; all (B, 3, H, W) in [0, 1]
+        # frame: (B, 3, Hf, Wf) the whole frames x was cut from (students with frame context)
         w = self.w
-        y = student(x)
+        def run(inp: torch.Tensor) -> torch.Tensor:
+            return student(inp) if frame is None else student(inp, frame)
+        y = run(x)
         out: dict[str, torch.Tensor] = {}
         if w.pixel_l1:
             out["pixel_l1"] = (y - t).abs().mean()
@@ -117,7 +151,7 @@ class DistillLoss:
             if w.gram:
                 out["gram"] = sum(((gram(fy[k]) - gram(ft[k])) ** 2).sum((1, 2)).mean() for k in w.gram_layers)
         if w.noise_consistency:
-            yn = student((x + noise).clamp(0, 1))
+            yn = run((x + noise).clamp(0, 1))
             out["noise_consistency"] = (yn - t).abs().mean()
         return out
 
@@ -158,6 +192,7 @@ def distill(net: nn.Module, cache: dict[str, np.ndarray], recipe: Recipe, steps:
             "step": s, "optimizer": opt.state_dict(), "loss_scale": dict(loss.scale),
             "seconds": seconds_before + time.monotonic() - t0, "last": dict(logs)}), ckpt_path)
 
+    with_frames = getattr(net, "context_at", -1) >= 0 and "frames" in cache
     net.train()
     try:
         while step < steps:
@@ -165,7 +200,8 @@ def distill(net: nn.Module, cache: dict[str, np.ndarray], recipe: Recipe, steps:
             idx = rng.integers(0, n, recipe.batch)
             x, t = _t(cache["inputs"][idx]), _t(cache["targets"][idx])
             noise = torch.from_numpy(rng.normal(0, recipe.loss.noise_sigma / 255.0, x.shape).astype(np.float32))
-            total, logs = loss.total(loss.terms(net, x, t, noise))
+            frame = _t(cache["frames"][cache["frame_index"][idx]]) if with_frames else None
+            total, logs = loss.total(loss.terms(net, x, t, noise, frame))
             for g in opt.param_groups:
                 g["lr"] = lr_at(step)
             opt.zero_grad(set_to_none=True)

@@ -19,7 +19,7 @@ import onnx
 from onnx import TensorProto, helper, numpy_helper
 from torch import nn
 
-from .layers import NearestUp2, Residual, Squash
+from .layers import FrameFiLM, NearestUp2, Residual, Squash
 
 OPSET = 17
 IR_VERSION = 8  # the IR that goes with opset 17; loads on onnxruntime >= 1.14
@@ -100,6 +100,15 @@ def _emit(g: _Graph, m: nn.Module, x: str, fixes: dict[int, WeightFix]) -> str:
         return g.op("SpaceToDepth", [x], "unshuffle", blocksize=m.downscale_factor)
     if isinstance(m, Squash):
         return g.op("Sigmoid", [x], "squash")
+    if isinstance(m, FrameFiLM):
+        def conv1(inp: str, c: nn.Conv2d, bias_add: float = 0.0) -> str:
+            w = c.weight.detach().cpu().numpy().astype(np.float32)
+            b = c.bias.detach().cpu().numpy().astype(np.float32) + np.float32(bias_add)
+            return g.op("Conv", [inp, g.const("w", w), g.const("b", b)], "conv", kernel_shape=[1, 1])
+        stats = g.op("GlobalAveragePool", [x], "frame_mean")
+        t = g.op("Relu", [conv1(stats, m.squeeze)], "relu")
+        scale = conv1(t, m.gamma, 1.0)                     # 1 + gamma, folded into the bias
+        return g.op("Add", [g.op("Mul", [x, scale], "film_scale"), conv1(t, m.beta)], "film_shift")
     raise ValueError(f"layer {type(m).__name__} is not supported by the ONNX writer")
 
 

@@ -86,16 +86,26 @@ def _calibration_frames(data: ContentSet, n: int, side: int, mult: int, seed: in
 
 
 def _init_from(path: str, fresh: torch.nn.Module, name: str) -> torch.nn.Module:
-    """A student checkpoint to start distillation from (e.g. one distilled with other
-    targets); its architecture must be the one the recipe's knobs build."""
+    """Start a student from a checkpoint (e.g. one distilled with other targets). The
+    architecture must be the one the recipe's knobs build, except that a student with
+    frame context may start from the same student without it (the context block starts
+    as the identity)."""
     try:
-        net = ckptmod.load(Path(path)).model()
+        old = ckptmod.load(Path(path)).model()
     except ckptmod.CheckpointError as e:
         raise CompressError(f"student {name}: init: {e}") from None
-    if net.model_args != fresh.model_args:
+    def shape(args: dict) -> dict:
+        return {k: v for k, v in args.items() if k not in ("knobs", "context")}
+    if shape(old.model_args) != shape(fresh.model_args) or \
+            old.model_args.get("context", 0) not in (0, fresh.model_args.get("context", 0)):
         raise CompressError(f"student {name}: init={path} holds a different architecture "
-                            f"({net.model_args.get('knobs')}) than the recipe's knobs")
-    return net.train()
+                            f"({old.model_args.get('knobs')}) than the recipe's knobs")
+    missing, unexpected = fresh.load_state_dict(old.state_dict(), strict=False)
+    film = fresh.context_at
+    if unexpected or any(not k.startswith(f"net.{film}.") for k in missing):
+        raise CompressError(f"student {name}: init={path}: weights do not fit "
+                            f"({(unexpected or missing)[:3]})")
+    return fresh.train()
 
 
 def compress(teacher: str, content: list[str], recipe: Recipe, out: Path) -> dict:

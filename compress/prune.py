@@ -19,6 +19,7 @@ from dataclasses import dataclass
 import torch
 from torch import nn
 
+from .layers import FrameFiLM
 from .students import Student
 
 
@@ -33,7 +34,9 @@ class _Space:
 
 def _spaces(net: Student) -> dict[str, _Space]:
     a = net.model_args
-    convs = [m for m in net.net.modules() if isinstance(m, nn.Conv2d)]
+    films = [m for m in net.net if isinstance(m, FrameFiLM)]
+    in_film = {id(c) for f in films for c in f.modules()}
+    convs = [m for m in net.net.modules() if isinstance(m, nn.Conv2d) and id(m) not in in_film]
     shuffle = 4 if a["upsample"] == "shuffle" else 1
     conv_in, d1, d2 = convs[0], convs[1], convs[2]
     per_block = 4 if a["depthwise"] else 2
@@ -45,6 +48,9 @@ def _spaces(net: Student) -> dict[str, _Space]:
           "c3": _Space(a["channels"][2], [(d2, 1)], [up1], []),
           "u1": _Space(a["up_channels"][0], [(up1, shuffle)], [up2], []),
           "u2": _Space(a["up_channels"][1], [(up2, shuffle)], [conv_out], [])}
+    for f in films:  # frame context reads and modulates the residual stream
+        sp["c3"].consumers.append(f.squeeze)
+        sp["c3"].producers += [(f.gamma, 1), (f.beta, 1)]
     for i, b in enumerate(blocks):
         if a["depthwise"]:
             dw1, pw1, dw2, pw2 = b
@@ -88,7 +94,8 @@ def prune_to(net: Student, keep: dict[str, torch.Tensor]) -> Student:
                   hidden=[len(keep[f"h{i}"]) for i in range(nh)],
                   up_channels=[len(keep["u1"]), len(keep["u2"])],
                   kernel_in=a["kernel_in"], kernel_out=a["kernel_out"], depthwise=a["depthwise"],
-                  downscale=a["downscale"], upsample=a["upsample"], knobs=a["knobs"])
+                  downscale=a["downscale"], upsample=a["upsample"], context=a.get("context", 0),
+                  knobs=a["knobs"])
     old_convs = [m for m in net.net.modules() if isinstance(m, nn.Conv2d)]
     new_convs = [m for m in new.net.modules() if isinstance(m, nn.Conv2d)]
     sp = _spaces(net)

@@ -8,7 +8,9 @@ normalisation layers. Knobs:
 - kernel_in / kernel_out: first and last kernel sizes (teacher: 9),
 - depthwise: depthwise-separable residual blocks,
 - downscale: internal space-to-depth factor (1 = none, 2 = work at half size),
-- upsample: "resize" (nearest resize + 3x3 conv) or "shuffle" (conv + pixel shuffle).
+- upsample: "resize" (nearest resize + 3x3 conv) or "shuffle" (conv + pixel shuffle),
+- context: frame-level context (layers.FrameFiLM) after the encoder, so the student can
+  follow the teacher's whole-frame normalisation.
 
 `Student` itself takes explicit channel counts, so a pruned network (any channel
 counts) is rebuilt from its checkpoint without guessing; `student_args` turns the
@@ -21,7 +23,7 @@ from dataclasses import asdict, dataclass
 import torch
 from torch import nn
 
-from .layers import NearestUp2, Residual, Squash, conv
+from .layers import FrameFiLM, NearestUp2, Residual, Squash, conv
 
 UPSAMPLE_MODES = ("resize", "shuffle")
 
@@ -35,6 +37,7 @@ class StudentKnobs:
     depthwise: bool = False
     downscale: int = 1
     upsample: str = "resize"
+    context: bool = False
 
     def __post_init__(self) -> None:
         if not 0.05 <= self.width <= 2.0:
@@ -67,6 +70,7 @@ def student_args(knobs: StudentKnobs) -> dict:
         "depthwise": knobs.depthwise,
         "downscale": knobs.downscale,
         "upsample": knobs.upsample,
+        "context": max(8, c3 // 2) if knobs.context else 0,
         "knobs": asdict(knobs),
     }
 
@@ -93,7 +97,8 @@ def _up(cin: int, cout: int, mode: str) -> list[nn.Module]:
 class Student(nn.Module):
     def __init__(self, channels: list[int], hidden: list[int], up_channels: list[int],
                  kernel_in: int = 5, kernel_out: int = 5, depthwise: bool = False,
-                 downscale: int = 1, upsample: str = "resize", knobs: dict | None = None) -> None:
+                 downscale: int = 1, upsample: str = "resize", context: int = 0,
+                 knobs: dict | None = None) -> None:
         super().__init__()
         c1, c2, c3 = channels
         u1, u2 = up_channels
@@ -101,7 +106,7 @@ class Student(nn.Module):
                            "up_channels": list(up_channels), "kernel_in": kernel_in,
                            "kernel_out": kernel_out, "depthwise": depthwise,
                            "downscale": downscale, "upsample": upsample,
-                           "knobs": dict(knobs or {})}
+                           "context": context, "knobs": dict(knobs or {})}
         self.size_multiple = 4 * downscale
         d2 = downscale * downscale
         layers: list[nn.Module] = []
@@ -110,6 +115,9 @@ class Student(nn.Module):
         layers += [conv(3 * d2, c1, kernel_in), _relu(),
                    conv(c1, c2, 3, 2), _relu(),
                    conv(c2, c3, 3, 2), _relu()]
+        self.context_at = len(layers) if context else -1
+        if context:
+            layers.append(FrameFiLM(c3, context))
         layers += [_block(c3, h, depthwise) for h in hidden]
         layers += _up(c3, u1, upsample) + _up(u1, u2, upsample)
         layers.append(conv(u2, 3 * d2, kernel_out))
@@ -118,10 +126,21 @@ class Student(nn.Module):
         layers.append(Squash())
         self.net = nn.Sequential(*layers)
 
-    def forward(self, x: torch.Tensor) -> torch.Tensor:
+    def forward(self, x: torch.Tensor, frame: torch.Tensor | None = None) -> torch.Tensor:
         # x: (N, 3, H, W) RGB in [0, 1], H and W multiples of size_multiple
+        # frame: (N, 3, Hf, Wf), the whole frame x was cropped from (training only; the
+        #   frame statistics of a context student come from it, without gradient)
         #   -> (N, 3, H, W) RGB in [0, 1]
-        return self.net(x)
+        k = self.context_at
+        if k < 0:
+            return self.net(x)
+        encoder, film, rest = self.net[:k], self.net[k], self.net[k + 1:]
+        h = encoder(x)                                  # (N, c3, H/s, W/s)
+        stats = None
+        if frame is not None:
+            with torch.no_grad():
+                stats = encoder(frame).mean(dim=(2, 3), keepdim=True)   # (N, c3, 1, 1)
+        return rest(film(h, stats))
 
 
 # A ladder of student shapes from slow-and-faithful to fast-and-rough; the default

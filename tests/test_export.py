@@ -11,12 +11,14 @@ import torch
 
 from limner.compress import checkpoint as ck
 from limner.compress.export import export
+from limner.compress.layers import FrameFiLM
 from limner.compress.registry import build
 from limner.compress.students import PRESETS
 from limner.runtime.model import load_model
 
-SHAPES = [("teacher", {})] + [("student", asdict(k)) for k in PRESETS.values()]
-IDS = ["teacher"] + list(PRESETS)
+SHAPES = ([("teacher", {})] + [("student", asdict(k)) for k in PRESETS.values()]
+          + [("student", asdict(PRESETS["s-half"]) | {"context": True})])
+IDS = ["teacher"] + list(PRESETS) + ["s-half-context"]
 
 
 def _torch_reference(net: torch.nn.Module, bgr: np.ndarray) -> np.ndarray:
@@ -34,6 +36,10 @@ def test_onnxruntime_matches_torch_on_photos(family, knobs, photos, tmp_path):
         if isinstance(m, torch.nn.InstanceNorm2d):
             m.weight.data.uniform_(0.5, 1.5)
             m.bias.data.uniform_(-0.3, 0.3)
+        if isinstance(m, FrameFiLM):  # zero-initialised: give the frame context an effect
+            for c in (m.gamma, m.beta):
+                c.weight.data.normal_(0, 0.05)
+                c.bias.data.normal_(0, 0.05)
     ck.save(ck.from_model(net, {"style": "t", "loss_network": "none"}), tmp_path / "n.pt")
     model = load_model(export(tmp_path / "n.pt", tmp_path / "n.onnx"), threads=1)
     mult = model.size_multiple
