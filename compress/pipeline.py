@@ -100,11 +100,16 @@ def _init_from(path: str, fresh: torch.nn.Module, name: str) -> torch.nn.Module:
             old.model_args.get("context", 0) not in (0, fresh.model_args.get("context", 0)):
         raise CompressError(f"student {name}: init={path} holds a different architecture "
                             f"({old.model_args.get('knobs')}) than the recipe's knobs")
-    missing, unexpected = fresh.load_state_dict(old.state_dict(), strict=False)
-    film = fresh.context_at
-    if unexpected or any(not k.startswith(f"net.{film}.") for k in missing):
-        raise CompressError(f"student {name}: init={path}: weights do not fit "
-                            f"({(unexpected or missing)[:3]})")
+    # the context block shifts the indices of the layers after it: match tensors in order
+    film = (f"net.{fresh.context_at}." if getattr(fresh, "context_at", -1) >= 0
+            and not old.model_args.get("context") else None)
+    fresh_sd = fresh.state_dict()
+    targets = [k for k in fresh_sd if not (film and k.startswith(film))]
+    old_sd = old.state_dict()
+    if len(targets) != len(old_sd) or any(fresh_sd[k].shape != v.shape for k, v in zip(targets, old_sd.values())):
+        raise CompressError(f"student {name}: init={path}: weights do not fit the recipe's knobs")
+    fresh_sd.update(dict(zip(targets, old_sd.values())))
+    fresh.load_state_dict(fresh_sd)
     return fresh.train()
 
 

@@ -5,6 +5,8 @@ building a queue (latency stays bounded). onnxruntime releases the GIL while it 
 """
 from __future__ import annotations
 
+from collections import deque
+
 import logging
 import signal
 import threading
@@ -39,11 +41,17 @@ class Output:
     size: tuple[int, int]
 
 
+LATENCY_BINS = 10_000
+
+
 @dataclass
 class LiveStats:
     frames: int = 0
     seconds: float = 0.0
-    latencies_ms: list[float] = field(default_factory=list)
+    # latency histogram in 1 ms bins (the last bin collects everything slower): bounded
+    # memory however long the show runs; `recent_ms` feeds the periodic stats line
+    latency_hist: np.ndarray = field(default_factory=lambda: np.zeros(LATENCY_BINS, np.int64))
+    recent_ms: deque = field(default_factory=lambda: deque(maxlen=300))
     first_frame_s: float = 0.0
     rss_start_mb: float = 0.0
     rss_end_mb: float = 0.0
@@ -57,8 +65,17 @@ class LiveStats:
         """Frames after the first, over the time since the first was shown."""
         return (self.frames - 1) / self.seconds if self.seconds > 0 and self.frames > 1 else 0.0
 
+    def add_latency(self, ms: float) -> None:
+        self.latency_hist[min(LATENCY_BINS - 1, max(0, int(ms)))] += 1
+        self.recent_ms.append(ms)
+
     def p(self, q: float) -> float:
-        return float(np.percentile(self.latencies_ms, q)) if self.latencies_ms else 0.0
+        """Latency percentile in ms from the histogram (to the 1 ms bin; upper edge)."""
+        n = int(self.latency_hist.sum())
+        if not n:
+            return 0.0
+        k = int(np.searchsorted(np.cumsum(self.latency_hist), q / 100.0 * n))
+        return float(min(k, LATENCY_BINS - 1) + 1)
 
     def line(self) -> str:
         size = max(self.sizes, key=self.sizes.get) if self.sizes else "?"
@@ -221,7 +238,7 @@ class Live:
                         t_first = t_begin = now
                         self.stats.first_frame_s = now - self.t_start
                     self.stats.frames += 1
-                    self.stats.latencies_ms.append((now - out.t_capture) * 1000)
+                    self.stats.add_latency((now - out.t_capture) * 1000)
                     key = f"{out.size[0]}x{out.size[1]}"
                     self.stats.sizes[key] = self.stats.sizes.get(key, 0) + 1
                     recent.append(now)
@@ -243,7 +260,7 @@ class Live:
                     self._key(self.window.poll())  # keep the last good output on screen
                 if time.monotonic() - last_stats >= self.show.output.stats_every_s:
                     last_stats = time.monotonic()
-                    lat = self.stats.latencies_ms[-300:]
+                    lat = list(self.stats.recent_ms)
                     log.info("stats: %.1f fps, latency p95 %.0f ms, size %s, capture %s, RSS %.0f MB",
                              len([t for t in recent if last_stats - t < 1.0]),
                              float(np.percentile(lat, 95)) if lat else 0.0,

@@ -217,6 +217,11 @@ def test_student_init_checkpoint_must_match_knobs(tmp_path):
     same = _init_from(str(tmp_path / "tiny.pt"), build("student", **knobs), "tiny")
     for a, b in zip(net.state_dict().values(), same.state_dict().values()):
         assert torch.equal(a, b)
+    # a student with frame context starts from the same student without it, unchanged
+    ctx = _init_from(str(tmp_path / "tiny.pt"), build("student", **knobs | {"context": True}), "tiny-ctx").eval()
+    x = torch.rand(1, 3, 64, 96)
+    with torch.no_grad():
+        assert torch.allclose(ctx(x), net.eval()(x), atol=1e-6)
     with pytest.raises(CompressError, match="different architecture"):
         _init_from(str(tmp_path / "tiny.pt"), build("student", **asdict(PRESETS["s-dw"])), "dw")
     with pytest.raises(CompressError, match="no such checkpoint"):
