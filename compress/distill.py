@@ -127,8 +127,9 @@ class DistillLoss:
         # x: input, t: teacher output, noise: same shape; all (B, 3, H, W) in [0, 1]
         # frame: (B, 3, Hf, Wf) the whole frames x was cut from (students with frame context)
         w = self.w
+        stats = student.frame_stats(frame) if frame is not None else None  # once per batch
         def run(inp: torch.Tensor) -> torch.Tensor:
-            return student(inp) if frame is None else student(inp, frame)
+            return student(inp) if stats is None else student(inp, stats=stats)
         y = run(x)
         out: dict[str, torch.Tensor] = {}
         if w.pixel_l1:

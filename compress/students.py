@@ -126,21 +126,25 @@ class Student(nn.Module):
         layers.append(Squash())
         self.net = nn.Sequential(*layers)
 
-    def forward(self, x: torch.Tensor, frame: torch.Tensor | None = None) -> torch.Tensor:
+    def frame_stats(self, frame: torch.Tensor) -> torch.Tensor:
+        """Pooled encoder features of whole frames, without gradient (training only).
+        frame: (N, 3, Hf, Wf) RGB in [0, 1] -> (N, c3, 1, 1)"""
+        with torch.no_grad():
+            return self.net[:self.context_at](frame).mean(dim=(2, 3), keepdim=True)
+
+    def forward(self, x: torch.Tensor, frame: torch.Tensor | None = None,
+                stats: torch.Tensor | None = None) -> torch.Tensor:
         # x: (N, 3, H, W) RGB in [0, 1], H and W multiples of size_multiple
-        # frame: (N, 3, Hf, Wf), the whole frame x was cropped from (training only; the
-        #   frame statistics of a context student come from it, without gradient)
+        # frame: (N, 3, Hf, Wf), the whole frame x was cropped from, or stats: its
+        #   frame_stats (training only; by default a context student pools x itself)
         #   -> (N, 3, H, W) RGB in [0, 1]
         k = self.context_at
         if k < 0:
             return self.net(x)
-        encoder, film, rest = self.net[:k], self.net[k], self.net[k + 1:]
-        h = encoder(x)                                  # (N, c3, H/s, W/s)
-        stats = None
-        if frame is not None:
-            with torch.no_grad():
-                stats = encoder(frame).mean(dim=(2, 3), keepdim=True)   # (N, c3, 1, 1)
-        return rest(film(h, stats))
+        if stats is None and frame is not None:
+            stats = self.frame_stats(frame)
+        h = self.net[:k](x)                             # (N, c3, H/s, W/s)
+        return self.net[k + 1:](self.net[k](h, stats))
 
 
 # A ladder of student shapes from slow-and-faithful to fast-and-rough; the default

@@ -128,7 +128,12 @@ def _run_compress(a: argparse.Namespace) -> int:
     from limner.runtime import config as cfgmod
 
     recipe = cfgmod.load(Recipe, a.recipe or _default_recipe())
-    manifest = compress(a.teacher, a.content, recipe, a.out)
+    try:
+        manifest = compress(a.teacher, a.content, recipe, a.out)
+    except KeyboardInterrupt:
+        print(f"\ninterrupted; the current candidate's checkpoint is saved under {a.out / 'work'}. "
+              "Run the same command again to continue.", file=sys.stderr)
+        return 130
     print(f"{len(manifest['candidates'])} candidate(s); manifest {a.out / 'manifest.json'}")
     return 0
 
