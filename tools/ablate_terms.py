@@ -1,0 +1,107 @@
+"""Which distillation terms matter: one short run per variant, each from the same start.
+
+Every variant starts from the same student checkpoint (`--init`), trains for `--steps`
+on the same teacher-target cache with the recipe's losses, one term switched off (or
+only one left), and is then scored against the teacher on held-out photos at 640x360
+with the bench's own metrics (MS-SSIM, S-CIELAB CIEDE2000 at the bench's default
+viewing geometry). Results go to a CSV and to stdout as a table.
+
+Usage:
+  python tools/ablate_terms.py --recipe configs/compress/ember-bundled.toml \\
+      --cache runtime/assets/candidates/ember/work/cache.npz \\
+      --init compress/assets/ember-crop-students/tiny.pt --student tiny-ctx \\
+      --teacher runtime/assets/models/ember-teacher.onnx \\
+      --content runtime/assets/photos/chelsea.jpg runtime/assets/photos/grace_hopper.jpg \\
+      --steps 300 -o runs/ablation
+"""
+from __future__ import annotations
+
+import argparse
+import csv
+import dataclasses
+import tempfile
+from pathlib import Path
+
+import cv2
+import numpy as np
+import torch
+
+from limner.bench.color import scielab_delta_e
+from limner.bench.metrics import ms_ssim
+from limner.bench.prepare import cover_crop
+from limner.compress.distill import distill
+from limner.compress.lossnet import build_loss_net
+from limner.compress.pipeline import _init_from
+from limner.compress.recipe import Recipe
+from limner.compress.registry import build
+from limner.runtime import config as cfgmod
+from limner.runtime.model import load_model
+
+TERMS = ("pixel_l1", "ms_ssim", "feature", "gram", "color_stats", "noise_consistency")
+PPD = 19.2  # configs/bench/default.toml: 1.2 m wide screen at 2 m, 640 px wide
+
+
+def stylise(net: torch.nn.Module, bgr: np.ndarray) -> np.ndarray:
+    x = torch.from_numpy(np.ascontiguousarray(bgr[:, :, ::-1])).permute(2, 0, 1)[None].float() / 255
+    with torch.no_grad():
+        y = net(x)[0].permute(1, 2, 0).numpy()[:, :, ::-1]
+    return np.ascontiguousarray(np.floor(y * 255 + 0.5).clip(0, 255).astype(np.uint8))
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    ap.add_argument("--recipe", type=Path, required=True)
+    ap.add_argument("--cache", type=Path, required=True, help="OUT/work/cache.npz of a compress run")
+    ap.add_argument("--init", required=True, help="student checkpoint every variant starts from")
+    ap.add_argument("--student", required=True, help="a student name in the recipe (its knobs)")
+    ap.add_argument("--teacher", required=True)
+    ap.add_argument("--content", nargs="+", required=True, help="held-out photos")
+    ap.add_argument("--steps", type=int, default=300)
+    ap.add_argument("--variants", nargs="+", default=["all"] + [f"no:{t}" for t in TERMS],
+                    help="'all', 'no:TERM' (all but TERM) or 'only:TERM' (TERM alone)")
+    ap.add_argument("-o", "--out", type=Path, required=True)
+    a = ap.parse_args()
+
+    recipe = cfgmod.load(Recipe, a.recipe)
+    spec = next((s for s in recipe.student if s.name == a.student), None)
+    if spec is None:
+        raise SystemExit(f"--student {a.student}: not in {a.recipe}")
+    z = np.load(a.cache)
+    cache = {k: z[k] for k in z.files}
+    lossnet, _ = build_loss_net(recipe.loss_net, None, recipe.loss_seed)
+    teacher = load_model(a.teacher)
+    photos = {Path(p).stem: cover_crop(cv2.imread(p), 640, 360) for p in a.content}
+    targets = {k: teacher.run(v) for k, v in photos.items()}
+    a.out.mkdir(parents=True, exist_ok=True)
+    rows = []
+    for variant in a.variants:
+        kind, _, term = variant.partition(":")
+        if variant != "all" and (kind not in ("no", "only") or term not in TERMS):
+            raise SystemExit(f"variant {variant!r}: 'all', 'no:TERM' or 'only:TERM' with TERM in {', '.join(TERMS)}")
+        on = set(TERMS) if variant == "all" else (set(TERMS) - {term} if kind == "no" else {term})
+        weights = dataclasses.replace(recipe.loss, **{t: (getattr(recipe.loss, t) or 1.0) if t in on else 0.0
+                                                      for t in TERMS})
+        r = dataclasses.replace(recipe, loss=weights)
+        net = _init_from(a.init, build("student", **spec.knobs), spec.name)
+        with tempfile.TemporaryDirectory() as work:
+            net, info = distill(net, cache, r, a.steps, spec.lr, lossnet, Path(work), f"{variant:>20}", {})
+        row = {"variant": variant, "steps": a.steps, "seconds": round(info["seconds"], 1)}
+        for name, img in photos.items():
+            out = stylise(net, img)
+            row[f"ms_ssim_{name}"] = round(ms_ssim(out, targets[name]), 4)
+            row[f"delta_e_{name}"] = round(scielab_delta_e(out, targets[name], PPD), 3)
+        row["ms_ssim_mean"] = round(float(np.mean([row[f"ms_ssim_{n}"] for n in photos])), 4)
+        row["delta_e_mean"] = round(float(np.mean([row[f"delta_e_{n}"] for n in photos])), 3)
+        rows.append(row)
+        print(row, flush=True)
+        with (a.out / "ablation.csv").open("w", newline="") as f:
+            w = csv.DictWriter(f, fieldnames=list(rows[0]))
+            w.writeheader()
+            w.writerows(rows)
+    print(f"\n| variant | MS-SSIM mean | S-CIELAB dE00 mean |\n|---|---|---|")
+    for row in rows:
+        print(f"| {row['variant']} | {row['ms_ssim_mean']:.3f} | {row['delta_e_mean']:.2f} |")
+
+
+if __name__ == "__main__":
+    main()
