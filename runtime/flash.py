@@ -69,13 +69,12 @@ class _Channel:
         self.anchor: np.ndarray | None = None       # level at the last extreme
         self.direction = np.zeros(shape, np.int8)   # +1 rising, -1 falling, 0 none yet
         self.times: deque[tuple[float, np.ndarray]] = deque()  # (t, bool mask of transitions)
+        self.counts = np.zeros(shape, np.int16)     # transitions per pixel in the window
 
     def recent_counts(self, now: float) -> np.ndarray:
         while self.times and now - self.times[0][0] >= WINDOW_S:
-            self.times.popleft()
-        if not self.times:
-            return np.zeros(self.direction.shape, np.int16)
-        return np.sum([m for _, m in self.times], axis=0, dtype=np.int16)
+            self.counts -= self.times.popleft()[1]
+        return self.counts
 
     def would_transition(self, level: np.ndarray, eligible: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """(mask of transitions this level makes, their direction)."""
@@ -99,6 +98,7 @@ class _Channel:
         self.direction = np.where(trans, direc, self.direction)
         if trans.any():
             self.times.append((now, trans.copy()))
+            self.counts += trans
 
 
 class FlashLimiter:
@@ -154,15 +154,15 @@ class FlashLimiter:
             self.lum = _Channel(lin.shape[:2], LUM_STEP)
             self.red = _Channel(lin.shape[:2], RED_STEP)
             y = rel_luminance(lin)
-            rl, _ = red_level(lin)
+            rl, sat0 = red_level(lin)
+            self.prev_levels = (y, rl, sat0)
             self.lum.would_transition(y, np.ones(y.shape, bool))
             self.red.would_transition(rl, np.ones(y.shape, bool))
             return frame_bgr
         assert self.lum is not None and self.red is not None
         out_lin = lin
-        y, y_prev = rel_luminance(lin), rel_luminance(self.prev_lin)
+        y, (y_prev, rl_prev, sat_prev) = rel_luminance(lin), self.prev_levels
         rl, sat = red_level(lin)
-        rl_prev, sat_prev = red_level(self.prev_lin)
         k = np.ones(y.shape, np.float32)
         for ch, level, prev_level, eligible, limit in (
                 (self.lum, y, y_prev, np.minimum(y, self.lum.anchor) < DARK_LIMIT, LUM_STEP),
@@ -185,14 +185,15 @@ class FlashLimiter:
             small_out = out if out.shape == small.shape else cv2.resize(out, (small.shape[1], small.shape[0]),
                                                                         interpolation=cv2.INTER_AREA)
             out_lin = to_linear(small_out)  # bookkeeping follows what is really shown
+            y_out, (rl_out, sat_out) = rel_luminance(out_lin), red_level(out_lin)
         else:
             out = frame_bgr
-        y_out = rel_luminance(out_lin)
-        rl_out, sat_out = red_level(out_lin)
+            y_out, rl_out, sat_out = y, rl, sat
         for ch, level, eligible in ((self.lum, y_out, np.minimum(y_out, self.lum.anchor) < DARK_LIMIT),
                                     (self.red, rl_out, sat_out | sat_prev)):
             trans, direc = ch.would_transition(level, eligible)
             ch.commit(level, trans, direc, now)
         self.prev_lin = out_lin
+        self.prev_levels = (y_out, rl_out, sat_out)
         self.prev_full = out
         return out

@@ -91,8 +91,10 @@ def run_live(opts: LiveOptions) -> LiveStats:
 
     show_window = show.display.window and display_available()
     record = show.output.record or None
-    if record is None and not show_window and is_demo:
-        record = opts.demo_output  # with no screen, a file is the only way to see the result
+    if record is None and not show_window and is_demo and not opts.headless:
+        # no screen found: a file is the only way to see the result (an explicit
+        # --headless means the operator wants no output, e.g. a measurement run)
+        record = opts.demo_output
     d = show.display
     window = Window(d.fullscreen, d.monitor_x, d.monitor_y, d.monitor_width, d.monitor_height) \
         if show_window else None

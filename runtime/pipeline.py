@@ -167,7 +167,6 @@ class Live:
                 if a > 0 and prev is not None and prev.shape == y.shape:
                     y = cv2.addWeighted(y, 1.0 - a, prev, a, 0.0)
                 now = time.monotonic()
-                y = self.limiter(y, now)
                 prev = y
                 dt = time.perf_counter() - t0
                 self.governor.observe(dt, now)
@@ -233,6 +232,8 @@ class Live:
                 self._trigger_file()
                 if out is not None and out.seq != shown_seq:
                     shown_seq = out.seq
+                    # the flash limiter runs here, beside the next inference, not after it
+                    image = self.limiter(out.image, time.monotonic())
                     now = time.monotonic()
                     if t_first is None:
                         t_first = t_begin = now
@@ -243,16 +244,16 @@ class Live:
                     self.stats.sizes[key] = self.stats.sizes.get(key, 0) + 1
                     recent.append(now)
                     if self.writer:
-                        self.writer.write(out.image)
+                        self.writer.write(image)
                     if self.snapshot_requested.is_set():
                         self.snapshot_requested.clear()
-                        self.snapshots.take(out.image)
+                        self.snapshots.take(image)
                     if self.window:
                         text = None
                         if self.overlay:
                             fps = len([t for t in recent if now - t < 1.0])
                             text = f"{fps} fps  {out.size[0]}x{out.size[1]}"
-                        self._key(self.window.show(present(out.image, self.show.display, text)))
+                        self._key(self.window.show(present(image, self.show.display, text)))
                     recent = [t for t in recent if now - t < 1.0]
                     if self.max_frames and self.stats.frames >= self.max_frames:
                         break
