@@ -45,13 +45,10 @@ def build_cache(teacher: Model, data: ContentSet, recipe: Recipe, path: Path) ->
     """
     path = Path(path)
     n, c = recipe.cache_crops, recipe.crop
-    key = f"{recipe.target_frame or 'crop'}:{recipe.crops_per_frame}:{recipe.seed}"
+    key = f"v2:{recipe.target_frame or 'crop'}:{recipe.crops_per_frame}:{recipe.seed}"
     if path.exists():
         z = dict(np.load(path))
         if z["inputs"].shape[0] == n and z["inputs"].shape[1] == c and str(z.get("key", "")) == key:
-            if recipe.target_frame and "frames" not in z:  # caches written before frames were kept
-                z["frames"], z["frame_index"] = _regenerate_frames(data, recipe, z["inputs"])
-                _save(path, z)
             return z
     z = {"inputs": np.empty((n, c, c, 3), np.uint8), "key": np.array(key)}
     z["targets"] = np.empty_like(z["inputs"])
@@ -90,20 +87,6 @@ def _frames(data: ContentSet, recipe: Recipe, count: int, w: int, h: int):
         offsets = [(8 * int(rng.integers(0, (h - c) // 8 + 1)), 8 * int(rng.integers(0, (w - c) // 8 + 1)))
                    for _ in range(per)]
         yield frame, offsets
-
-
-def _regenerate_frames(data: ContentSet, recipe: Recipe, inputs: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Rebuild the frames of an older cache from the same seeds; every crop must match."""
-    w, h = recipe.frame_size()
-    n, c, per = inputs.shape[0], recipe.crop, recipe.crops_per_frame
-    nf = (n + per - 1) // per
-    frames = np.empty((nf, h, w, 3), np.uint8)
-    for f, (frame, offsets) in enumerate(_frames(data, recipe, nf, w, h)):
-        frames[f] = frame[:, :, ::-1]
-        for i, (y, x) in zip(range(f * per, min(n, (f + 1) * per)), offsets):
-            if not np.array_equal(frames[f, y:y + c, x:x + c], inputs[i]):
-                raise RuntimeError("teacher-target cache does not match its content set; delete it to rebuild")
-    return frames, np.arange(n, dtype=np.int32) // per
 
 
 def _save(path: Path, z: dict[str, np.ndarray]) -> None:

@@ -101,14 +101,11 @@ def _emit(g: _Graph, m: nn.Module, x: str, fixes: dict[int, WeightFix]) -> str:
     if isinstance(m, Squash):
         return g.op("Sigmoid", [x], "squash")
     if isinstance(m, FrameFiLM):
-        def conv1(inp: str, c: nn.Conv2d, bias_add: float = 0.0) -> str:
-            w = c.weight.detach().cpu().numpy().astype(np.float32)
-            b = c.bias.detach().cpu().numpy().astype(np.float32) + np.float32(bias_add)
-            return g.op("Conv", [inp, g.const("w", w), g.const("b", b)], "conv", kernel_shape=[1, 1])
         stats = g.op("GlobalAveragePool", [x], "frame_mean")
-        t = g.op("Relu", [conv1(stats, m.squeeze)], "relu")
-        scale = conv1(t, m.gamma, 1.0)                     # 1 + gamma, folded into the bias
-        return g.op("Add", [g.op("Mul", [x, scale], "film_scale"), conv1(t, m.beta)], "film_shift")
+        t = _emit(g, nn.Sequential(m.squeeze, nn.ReLU()), stats, fixes)
+        one_plus = {id(m.gamma): lambda w, b: (w, b + np.float32(1.0))}  # 1 + gamma, in the bias
+        scale = _emit(g, m.gamma, t, one_plus)
+        return g.op("Add", [g.op("Mul", [x, scale], "film_scale"), _emit(g, m.beta, t, fixes)], "film_shift")
     raise ValueError(f"layer {type(m).__name__} is not supported by the ONNX writer")
 
 

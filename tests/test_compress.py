@@ -126,13 +126,6 @@ def test_cached_targets_are_crops_of_whole_frame_outputs(teacher_onnx, tmp_path)
             y, x = hits[0]
             assert np.array_equal(cache["targets"][i], out[y:y + 64, x:x + 64, ::-1])
             assert np.array_equal(cache["frames"][cache["frame_index"][i]], frame[:, :, ::-1])
-    # a cache written without its frames gets them back from the same seeds
-    z = dict(np.load(tmp_path / "cache.npz"))
-    frames = z.pop("frames")
-    z.pop("frame_index")
-    np.savez(tmp_path / "cache.npz", **z)
-    again = build_cache(teacher, data, recipe, tmp_path / "cache.npz")
-    assert np.array_equal(again["frames"], frames)
     # a changed recipe rebuilds the cache instead of reusing stale targets
     other = build_cache(teacher, data, Recipe(crop=64, cache_crops=6, target_frame=""), tmp_path / "cache.npz")
     assert not np.array_equal(other["inputs"], cache["inputs"])
