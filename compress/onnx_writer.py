@@ -5,10 +5,16 @@ the dynamo exporter, which needs onnxscript); our family is a handful of layer
 types, so writing the graph ourselves works the same on any torch from 2.4 on and
 gives exact control over the contract:
 
-  input  uint8 (N, H, W, 3) BGR --Cast, Transpose--> float (N, 3, H, W) BGR 0..255
+  input  uint8 (N, H, W, 3) BGR --Transpose, (SpaceToDepth), Cast--> float NCHW 0..255
   the first conv absorbs the BGR->RGB swap and the /255 (weights permuted, scaled)
   the last conv emits BGR (output channels permuted)
-  Sigmoid -> *255 -> +0.5 -> Clip(0, 255) -> Transpose -> Cast uint8 (N, H, W, 3) BGR
+  Sigmoid -> *255 -> +0.5 -> Cast uint8 -> (DepthToSpace) -> Transpose (N, H, W, 3) BGR
+
+The layout changes at both ends (a network's first PixelUnshuffle and last PixelShuffle
+included) run on uint8, a quarter of the bytes of float: for a small student that took
+the full-resolution float SpaceToDepth / DepthToSpace / Transpose from about a fifth of
+its onnxruntime time. No Clip is needed: Sigmoid * 255 + 0.5 lies in (0.5, 255.5),
+which the truncating Cast maps into 0..255.
 """
 from __future__ import annotations
 
@@ -93,7 +99,9 @@ def _emit(g: _Graph, m: nn.Module, x: str, fixes: dict[int, WeightFix]) -> str:
         return g.op("Resize", [x, "", scales], "up", mode="nearest",
                     coordinate_transformation_mode="asymmetric", nearest_mode="floor")
     if isinstance(m, nn.PixelShuffle):
-        return g.op("DepthToSpace", [x], "shuffle", blocksize=m.upscale_factor, mode="CRD")
+        # DCR moves whole channel planes (faster in onnxruntime than torch's CRD order);
+        # the conv before it emits its channels in DCR order (_dcr_fix)
+        return g.op("DepthToSpace", [x], "shuffle", blocksize=m.upscale_factor, mode="DCR")
     if isinstance(m, nn.PixelUnshuffle):
         # ONNX SpaceToDepth orders channels (block, c); torch orders (c, block): the
         # next conv's input channels are permuted to match (see _first_conv_fix).
@@ -118,13 +126,47 @@ def _first_conv_fix(r: int) -> WeightFix:
     return fix
 
 
-def _last_conv_fix(r: int) -> WeightFix:
-    """Emit BGR instead of RGB, in depth-to-space (CRD) channel order."""
+def _dcr_fix(r: int) -> WeightFix:
+    """Output channels from torch's PixelShuffle order (c r r + i r + j) to ONNX
+    DepthToSpace DCR order ((i r + j) C + c)."""
     def fix(w: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        n = np.arange(3 * r * r)
-        old = (2 - n // (r * r)) * r * r + n % (r * r)
+        c = w.shape[0] // (r * r)
+        n = np.arange(c * r * r)
+        old = (n % c) * r * r + n // c
         return w[old], b[old]
     return fix
+
+
+def _then(first: WeightFix, second: WeightFix) -> WeightFix:
+    return lambda w, b: second(*first(w, b))
+
+
+def _last_conv_fix(r: int) -> WeightFix:
+    """Emit BGR instead of RGB, in depth-to-space DCR channel order: output channel
+    (i r + j) 3 + c (c in BGR) is torch's channel (2 - c) r r + i r + j."""
+    def fix(w: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        n = np.arange(3 * r * r)
+        old = (2 - n % 3) * r * r + n // 3
+        return w[old], b[old]
+    return fix
+
+
+def _uint8_to_nchw(g: _Graph, r: int) -> str:
+    """uint8 (N, H, W, 3) -> float (N, 3 r r, H / r, W / r), channels in ONNX
+    SpaceToDepth order ((i r + j) 3 + c for the pixel (i, j) of each r x r block)."""
+    x = g.op("Transpose", ["image"], "to_nchw", perm=[0, 3, 1, 2])
+    if r > 1:
+        x = g.op("SpaceToDepth", [x], "unshuffle", blocksize=r)
+    return g.op("Cast", [x], "as_float", to=TensorProto.FLOAT)
+
+
+def _nchw_to_uint8(g: _Graph, x: str, r: int) -> None:
+    """uint8 (N, 3 r r, H / r, W / r) in DepthToSpace DCR order ((i r + j) 3 + c) ->
+    the output `stylized`, uint8 (N, H, W, 3). DCR moves whole channel planes: faster
+    than CRD in onnxruntime (1.5 against 2.7 ms for uint8 at 640x360 here)."""
+    if r > 1:
+        x = g.op("DepthToSpace", [x], "shuffle", blocksize=r, mode="DCR")
+    g.nodes.append(helper.make_node("Transpose", [x], ["stylized"], name="to_nhwc", perm=[0, 2, 3, 1]))
 
 
 def to_onnx(net: nn.Module, props: dict[str, str], graph_name: str = "limner") -> onnx.ModelProto:
@@ -136,24 +178,33 @@ def to_onnx(net: nn.Module, props: dict[str, str], graph_name: str = "limner") -
         raise ValueError("network must end in Squash")
     down = layers[0].downscale_factor if isinstance(layers[0], nn.PixelUnshuffle) else 1
     up = layers[-2].upscale_factor if isinstance(layers[-2], nn.PixelShuffle) else 1
-    fixes: dict[int, WeightFix] = {id(convs[0]): _first_conv_fix(down)}
-    last = _last_conv_fix(up)
-    if convs[-1] is convs[0]:
-        first = fixes[id(convs[0])]
-        fixes[id(convs[0])] = lambda w, b: last(*first(w, b))
-    else:
-        fixes[id(convs[-1])] = last
+    fixes: dict[int, WeightFix] = {}
+
+    def add_fix(conv: nn.Module, fix: WeightFix) -> None:
+        fixes[id(conv)] = _then(fixes[id(conv)], fix) if id(conv) in fixes else fix
+
+    add_fix(convs[0], _first_conv_fix(down))
+    for k, m in enumerate(layers[:-2]):  # inner upsampling; the last shuffle is the output's
+        if isinstance(m, nn.PixelShuffle):
+            if k == 0 or not isinstance(layers[k - 1], nn.Conv2d):
+                raise ValueError("a PixelShuffle must follow a Conv2d for the ONNX writer")
+            add_fix(layers[k - 1], _dcr_fix(m.upscale_factor))
+    add_fix(convs[-1], _last_conv_fix(up))
 
     g = _Graph()
-    x = g.op("Cast", ["image"], "as_float", to=TensorProto.FLOAT)
-    x = g.op("Transpose", [x], "to_nchw", perm=[0, 3, 1, 2])
-    x = _emit(g, seq, x, fixes)
+    body = list(seq)
+    if (down > 1 and not isinstance(body[0], nn.PixelUnshuffle)) or \
+            (up > 1 and not isinstance(body[-2], nn.PixelShuffle)):
+        raise ValueError("PixelUnshuffle / PixelShuffle must be the first / next-to-last layer of net.net")
+    body = body[1 if down > 1 else 0:]          # folded into the input layout change
+    if up > 1:
+        body = body[:-2] + body[-1:]            # folded into the output layout change
+    x = _uint8_to_nchw(g, down)
+    x = _emit(g, nn.Sequential(*body), x, fixes)
     x = g.op("Mul", [x, g.const("k255", np.array(255.0, np.float32))], "scale")
     x = g.op("Add", [x, g.const("half", np.array(0.5, np.float32))], "round")
-    x = g.op("Clip", [x, g.const("lo", np.array(0.0, np.float32)),
-                      g.const("hi", np.array(255.0, np.float32))], "clip")
-    x = g.op("Transpose", [x], "to_nhwc", perm=[0, 2, 3, 1])
-    g.nodes.append(helper.make_node("Cast", [x], ["stylized"], name="as_uint8", to=TensorProto.UINT8))
+    x = g.op("Cast", [x], "as_uint8", to=TensorProto.UINT8)
+    _nchw_to_uint8(g, x, up)
 
     shape = ["batch", "height", "width", 3]
     graph = helper.make_graph(

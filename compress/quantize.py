@@ -115,8 +115,18 @@ def count_qdq(model: onnx.ModelProto) -> dict[str, int]:
             "int8_initializers": len(int8_inits)}
 
 
+def output_tail(model: onnx.ModelProto) -> list[str]:
+    """The nodes after the last Conv (Sigmoid, scaling, Cast, layout): they stay in float
+    and uint8 as written; quantizing them would add a rounding step to the output and a
+    quantize / dequantize pair at full resolution."""
+    nodes = model.graph.node  # topologically sorted (ONNX requires it)
+    last = max((i for i, n in enumerate(nodes) if n.op_type == "Conv"), default=len(nodes) - 1)
+    return [n.name for n in nodes[last + 1:]]
+
+
 def _quantize(pre: Path, out: Path, frames: list[np.ndarray], spec: Int8Spec, types: IntTypes,
               exclude: list[str], cache: Path) -> None:
+    exclude = list(exclude) + output_tail(onnx.load(str(pre)))
     quantize_static(str(pre), str(out), _Frames(frames, "image"), quant_format=QuantFormat.QDQ,
                     op_types_to_quantize=["Conv", "Relu", "Add", "Resize", "DepthToSpace", "SpaceToDepth"],
                     per_channel=True, reduce_range=types.reduce_range,

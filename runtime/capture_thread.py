@@ -65,16 +65,17 @@ class Capture:
         if self._reader is not None:
             self._reader.join(timeout=3)
 
-    def latest(self, after_seq: int, timeout: float) -> Frame | None:
-        """The newest frame with seq > after_seq, waiting up to `timeout` seconds."""
+    def take(self, timeout: float) -> Frame | None:
+        """The newest frame not yet taken by any consumer, waiting up to `timeout` seconds.
+        Several inference workers call this: each frame goes to one of them."""
         deadline = time.monotonic() + timeout
         with self.cond:
-            while (self.newest is None or self.newest.seq <= after_seq) and self.state != "ended":
+            while (self.newest is None or self.newest.seq <= self.taken) and self.state != "ended":
                 left = deadline - time.monotonic()
                 if left <= 0 or self._stop.is_set():
                     return None
                 self.cond.wait(left)
-            if self.newest is not None and self.newest.seq > after_seq:
+            if self.newest is not None and self.newest.seq > self.taken:
                 self.taken = self.newest.seq
                 self.cond.notify_all()
                 return self.newest

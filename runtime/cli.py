@@ -75,7 +75,9 @@ def _add_live(p: argparse.ArgumentParser) -> None:
     p.add_argument("--pace-fps", type=float, metavar="F", help="play a file at F fps, like a camera")
     p.add_argument("--resolution", metavar="WxH", help="pin the inference size (governor off)")
     p.add_argument("--no-governor", action="store_true", help="keep the largest ladder size")
-    p.add_argument("--threads", type=int, help="inference threads (default: all cores)")
+    p.add_argument("--threads", type=int, help="inference threads in all (default: all cores)")
+    p.add_argument("--workers", type=int, metavar="N",
+                   help="frames stylised side by side, sharing the threads (default: 2 on 2+ cores)")
     p.add_argument("--snapshot-dir", metavar="DIR", help="where the s key / SIGUSR1 writes stills")
     p.add_argument("--log-dir", metavar="DIR", help="rotating log files")
     p.add_argument("--heartbeat", metavar="FILE", help="touched every second for a watchdog")

@@ -40,8 +40,29 @@ _LUT = np.array([(v / 255) / 12.92 if v / 255 <= 0.04045 else ((v / 255 + 0.055)
                  for v in range(256)], np.float32)
 
 
+# linear light in 16-bit steps (float32 values 0..65535) and back: the clamped blend runs on
+# whole frames, so it uses OpenCV table lookups instead of float powers (about 4 ms
+# instead of 23 at 640x360 here)
+_Q = (1 << 16) - 1
+_LUT16 = (_LUT.astype(np.float64) * _Q).astype(np.float32)
+_v = (np.arange(_Q + 1, dtype=np.float64) + 0.5) / _Q   # the centre of each truncated step
+_INV16 = np.clip(np.round(np.where(_v <= 0.0031308, _v * 12.92, 1.055 * _v ** (1 / 2.4) - 0.055) * 255),
+                 0, 255).astype(np.uint8)
+del _v
+
+
 def to_linear(img_bgr: np.ndarray) -> np.ndarray:
     return _LUT[img_bgr]
+
+
+def blend_linear(prev_bgr: np.ndarray, new_bgr: np.ndarray, k: np.ndarray) -> np.ndarray:
+    """prev + (new - prev) * k per pixel, in linear light; uint8 BGR in and out, k (H, W)
+    float32 in [0, 1]. Matches to_srgb8 of the float blend within one 8-bit step."""
+    lin_prev = cv2.LUT(prev_bgr, _LUT16)
+    lin_new = cv2.LUT(new_bgr, _LUT16)
+    k = np.ascontiguousarray(k, np.float32)
+    mixed = cv2.blendLinear(lin_new, lin_prev, k, 1.0 - k)
+    return np.take(_INV16, mixed.astype(np.uint16))
 
 
 def to_srgb8(lin: np.ndarray) -> np.ndarray:
@@ -180,8 +201,7 @@ class FlashLimiter:
         if (k < 1).any():
             self.clamped_frames += 1
             kf = k if k.shape == frame_bgr.shape[:2] else cv2.resize(k, (w, h), interpolation=cv2.INTER_NEAREST)
-            full_prev, full_new = to_linear(self.prev_full), to_linear(frame_bgr)
-            out = to_srgb8(full_prev + (full_new - full_prev) * kf[..., None])
+            out = blend_linear(self.prev_full, frame_bgr, kf)
             small_out = out if out.shape == small.shape else cv2.resize(out, (small.shape[1], small.shape[0]),
                                                                         interpolation=cv2.INTER_AREA)
             out_lin = to_linear(small_out)  # bookkeeping follows what is really shown

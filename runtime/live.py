@@ -31,6 +31,7 @@ class LiveOptions:
     headless: bool = False
     fullscreen: bool | None = None
     threads: int | None = None
+    workers: int | None = None
     loop: bool | None = None
     resolution: str | None = None
     pace_fps: float | None = None
@@ -54,6 +55,8 @@ def resolve(opts: LiveOptions) -> ShowConfig:
         c.pace_fps = opts.pace_fps
     if opts.threads is not None:
         i.threads = opts.threads
+    if opts.workers is not None:
+        i.workers = opts.workers
     if opts.resolution:
         i.resolution = opts.resolution
         i.__post_init__()

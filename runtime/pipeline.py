@@ -1,7 +1,10 @@
-"""The live pipeline: capture thread -> inference thread -> presenter (main thread).
+"""The live pipeline: capture thread -> inference workers -> presenter (main thread).
 
-Each stage keeps only the newest item, so a slow stage drops frames instead of
-building a queue (latency stays bounded). onnxruntime releases the GIL while it runs.
+The capture keeps only the newest frame, so a slow stage drops frames instead of
+building a queue (latency stays bounded). Several workers stylise consecutive frames
+side by side (onnxruntime releases the GIL while it runs and one session serves
+concurrent calls); the presenter takes their results in capture order (inflight.py),
+then applies temporal smoothing, the flash limiter, the window, recording and snapshots.
 """
 from __future__ import annotations
 
@@ -22,23 +25,16 @@ from .capture_thread import Capture
 from .flash import FlashLimiter
 from .frames import crop_to_multiple
 from .governor import Governor
+from .inflight import InFlight, Output
 from .playlist import Playlist, is_open
 from .present import holding_card, letterbox, present
 from .settings import ShowConfig
 from .sinks import VideoFile, Window
 from .sources import FrameSource
+from .session import default_threads
 from .unattended import Heartbeat, Snapshots, rss_mb
 
 log = logging.getLogger("limner.live")
-
-
-@dataclass
-class Output:
-    seq: int
-    image: np.ndarray
-    t_capture: float
-    t_done: float
-    size: tuple[int, int]
 
 
 LATENCY_BINS = 10_000
@@ -57,6 +53,8 @@ class LiveStats:
     rss_end_mb: float = 0.0
     reconnects: int = 0
     resolution_changes: int = 0
+    captured: int = 0     # frames the source delivered while the show ran
+    workers: int = 1
     output: str | None = None
     sizes: dict[str, int] = field(default_factory=dict)
 
@@ -83,6 +81,10 @@ class LiveStats:
              f"{size}; capture-to-output latency p50 {self.p(50):.0f} ms, p95 {self.p(95):.0f} ms; "
              f"first frame after {self.first_frame_s:.2f} s; RSS {self.rss_start_mb:.0f} -> "
              f"{self.rss_end_mb:.0f} MB")
+        if self.captured:
+            skipped = max(0, self.captured - self.frames)
+            s += f"; {skipped} of {self.captured} source frames skipped"
+        s += f"; {self.workers} inference worker(s)"
         if self.reconnects:
             s += f"; {self.reconnects} reconnect(s)"
         return s + (f"; wrote {self.output}" if self.output else "")
@@ -110,7 +112,11 @@ class Live:
         self.show, self.max_frames = show, max_frames
         self.t_start = time.monotonic()
         inf, saf = show.inference, show.safety
-        self.playlist = Playlist(show.play, inf.threads, show.crossfade_s, saf.max_crossfade_step)
+        threads = inf.threads or default_threads()
+        self.workers = inf.workers or min(2, threads)
+        # each worker's onnxruntime call gets its share of the threads (one session serves all)
+        self.playlist = Playlist(show.play, max(1, threads // self.workers), show.crossfade_s,
+                                 saf.max_crossfade_step)
         self.multiple = self.playlist.size_multiple()
         self.capture = Capture(opener, stall_s=show.capture.stall_s, pace_fps=show.capture.pace_fps)
         self.governor = Governor(inf.sizes(), inf.target_fps, enabled=inf.governor and not inf.resolution)
@@ -122,68 +128,68 @@ class Live:
         self.writer = VideoFile(Path(record), record_fps) if record else None
         self.snapshots = Snapshots(show.output.snapshot_dir, show.output.snapshot_keep)
         self.heartbeat = Heartbeat(show.output.heartbeat)
-        self.cond = threading.Condition()
-        self.newest: Output | None = None
+        self.inflight = InFlight()
+        self._claim_lock = threading.Lock()   # take a frame and claim it as one step
         self.stop = threading.Event()
+        self.workers_done = threading.Event()
+        self._running = self.workers
         self.snapshot_requested = threading.Event()
-        self.stats = LiveStats(rss_start_mb=rss_mb())
+        self.stats = LiveStats(rss_start_mb=rss_mb(), workers=self.workers)
         self.overlay = show.display.overlay
-        self._infer_thread = threading.Thread(target=self._infer_loop, name="inference", daemon=True)
+        self._workers = [threading.Thread(target=self._infer_loop, args=(i,), name=f"inference-{i}", daemon=True)
+                         for i in range(self.workers)]
 
     # -- inference thread -------------------------------------------------------------
     def _stylise(self, x: np.ndarray) -> np.ndarray:
         pl = self.playlist
-        cur = pl.current
+        # the presenter thread moves the playlist on: read its state once
+        cur, fade_from, fade = pl.current, pl.fade_from, pl.fade
         y = cur.model.run(x)
-        if pl.fade_from is not None and pl.fade < 1.0:
-            old = pl.loaded[pl.fade_from]
+        if fade_from is not None and fade < 1.0:
+            old = pl.loaded[fade_from]
             y_old = old.model.run(x)
             y_old = _blend_strength(y_old, x, old.item.strength)
             y = _blend_strength(y, x, cur.item.strength)
-            return cv2.addWeighted(y, pl.fade, y_old, 1.0 - pl.fade, 0.0)
+            return cv2.addWeighted(y, fade, y_old, 1.0 - fade, 0.0)
         return _blend_strength(y, x, cur.item.strength)
 
-    def _infer_loop(self) -> None:
-        seq, prev, last_t = 0, None, time.monotonic()
-        closed_card: np.ndarray | None = None
+    def _infer_loop(self, worker: int) -> None:
         try:
             while not self.stop.is_set():
                 if not is_open(self.show.hours):
-                    w, h = self.governor.ladder[-1]
-                    closed_card = holding_card(w, h, self.show.card_text, self.show.closed == "blank")
-                    self._publish(Output(seq, closed_card, time.monotonic(), time.monotonic(), (w, h)))
+                    if worker == 0:
+                        w, h = self.governor.ladder[-1]
+                        card = holding_card(w, h, self.show.card_text, self.show.closed == "blank")
+                        self.inflight.post(Output(-1, card, time.monotonic(), time.monotonic(), (w, h)))
                     self.stop.wait(1.0)
                     continue
-                f = self.capture.latest(seq, timeout=0.25)
+                with self._claim_lock:
+                    f = self.capture.take(timeout=0.25)
+                    if f is not None:
+                        self.inflight.claim(f.seq)
                 if f is None:
                     if self.capture.state == "ended":
                         break
                     continue
-                seq = f.seq
-                t0 = time.perf_counter()
-                x = prepare(f.image, self.governor.size, self.multiple, self.show.inference.fit)
-                y = self._stylise(x)
-                a = self.show.inference.smoothing
-                if a > 0 and prev is not None and prev.shape == y.shape:
-                    y = cv2.addWeighted(y, 1.0 - a, prev, a, 0.0)
-                now = time.monotonic()
-                prev = y
-                dt = time.perf_counter() - t0
-                self.governor.observe(dt, now)
-                self.playlist.tick(now, now - last_t)
-                last_t = now
-                self._publish(Output(seq, y, f.t, now, (y.shape[1], y.shape[0])))
+                try:
+                    t0 = time.perf_counter()
+                    x = prepare(f.image, self.governor.size, self.multiple, self.show.inference.fit)
+                    y = self._stylise(x)
+                except Exception:
+                    self.inflight.give_up(f.seq)
+                    raise
+                self.inflight.finish(Output(f.seq, y, f.t, time.monotonic(), (y.shape[1], y.shape[0]),
+                                            time.perf_counter() - t0))
         except Exception:
             log.exception("inference stopped")
+            self.stop.set()
         finally:
-            with self.cond:
-                self.stop.set()
-                self.cond.notify_all()
-
-    def _publish(self, out: Output) -> None:
-        with self.cond:
-            self.newest = out
-            self.cond.notify_all()
+            with self._claim_lock:
+                self._running -= 1
+                if self._running == 0:
+                    self.workers_done.set()  # the presenter shows what is still in flight, then ends
+            with self.inflight.cond:
+                self.inflight.cond.notify_all()
 
     # -- main thread --------------------------------------------------------------------
     def _key(self, k: int) -> None:
@@ -218,28 +224,42 @@ class Live:
             if hasattr(signal, "SIGUSR1"):
                 old[signal.SIGUSR1] = signal.signal(signal.SIGUSR1, on_snap)
         self.capture.start()
-        self._infer_thread.start()
-        shown_seq, t_first, t_begin = -1, None, None
-        last_stats = time.monotonic()
+        for t in self._workers:
+            t.start()
+        t_first, t_begin = None, None
+        last_stats = last_shown = time.monotonic()
         recent: list[float] = []
+        prev: np.ndarray | None = None
+        seq0 = None
+        a = self.show.inference.smoothing
         try:
             while not self.stop.is_set():
-                with self.cond:
-                    if self.newest is None or self.newest.seq == shown_seq:
-                        self.cond.wait(0.05)
-                    out = self.newest
+                out = self.inflight.next(timeout=0.05)
+                if out is None and self.workers_done.is_set() and not self.inflight.pending():
+                    break  # the source ended and every frame taken from it was shown
                 self.heartbeat.beat()
                 self._trigger_file()
-                if out is not None and out.seq != shown_seq:
-                    shown_seq = out.seq
-                    # the flash limiter runs here, beside the next inference, not after it
-                    image = self.limiter(out.image, time.monotonic())
+                if out is not None:
+                    t_now = time.monotonic()
+                    if out.seq >= 0:
+                        seq0 = out.seq if seq0 is None else seq0
+                        self.stats.captured = out.seq - seq0 + 1  # source frames this run spanned
+                        self.governor.observe(out.busy_s / self.workers, t_now)
+                        self.playlist.tick(t_now, t_now - last_shown)
+                    last_shown = t_now
+                    image = out.image
+                    if a > 0 and out.seq >= 0 and prev is not None and prev.shape == image.shape:
+                        image = cv2.addWeighted(image, 1.0 - a, prev, a, 0.0)
+                    prev = image
+                    # the flash limiter runs here, beside the next inferences, not after them
+                    image = self.limiter(image, time.monotonic())
                     now = time.monotonic()
                     if t_first is None:
                         t_first = t_begin = now
                         self.stats.first_frame_s = now - self.t_start
                     self.stats.frames += 1
-                    self.stats.add_latency((now - out.t_capture) * 1000)
+                    if out.seq >= 0:
+                        self.stats.add_latency((now - out.t_capture) * 1000)
                     key = f"{out.size[0]}x{out.size[1]}"
                     self.stats.sizes[key] = self.stats.sizes.get(key, 0) + 1
                     recent.append(now)
@@ -269,9 +289,10 @@ class Live:
         finally:
             end = time.monotonic()
             self.stop.set()
-            # let the current inference finish: tearing down onnxruntime under a running
+            # let the current inferences finish: tearing down onnxruntime under a running
             # session crashes the process
-            self._infer_thread.join(timeout=120)
+            for t in self._workers:
+                t.join(timeout=120)
             self.capture.stop()
             if self.writer:
                 self.writer.close()

@@ -32,7 +32,9 @@ class CaptureSettings:
 
 @dataclass
 class InferenceSettings:
-    threads: int = 0                # onnxruntime intra-op threads (0: all cores)
+    threads: int = 0                # onnxruntime threads in all (0: all cores)
+    workers: int = 0                # frames stylised side by side, sharing the threads (0: auto,
+                                    # min(2, threads): two one-thread calls beat one two-thread call)
     ladder: list[str] = field(default_factory=lambda: ["320x180", "480x270", "640x360"])
     resolution: str = ""            # pin one size (switches the governor off)
     target_fps: float = 30.0
@@ -48,6 +50,10 @@ class InferenceSettings:
             raise ValueError(f"inference.fit={self.fit!r}: crop or letterbox")
         if not 0 <= self.smoothing <= 0.9:
             raise ValueError(f"inference.smoothing={self.smoothing}: between 0 and 0.9")
+        if self.threads < 0:
+            raise ValueError(f"inference.threads={self.threads}: 0 (all cores) or more")
+        if self.workers < 0:
+            raise ValueError(f"inference.workers={self.workers}: 0 (auto) or more")
         if self.target_fps <= 0:
             raise ValueError(f"inference.target_fps={self.target_fps}: must be positive")
 

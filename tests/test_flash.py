@@ -108,3 +108,21 @@ def test_slow_blinking_is_left_alone(hz):
     black = np.zeros_like(white)
     frames = _strobe(white, black, n=240, hz=hz)
     assert all(np.array_equal(a, b) for a, b in zip(frames, _run(frames)))
+
+
+def test_clamped_blend_is_a_linear_light_mix():
+    """The clamped blend mixes in linear light: sRGB decoding and encoding per IEC 61966-2-1
+    (the piecewise formulas, computed here in float64), to within one 8-bit step."""
+    from limner.runtime.flash import blend_linear
+
+    rng = np.random.default_rng(3)
+    a = rng.integers(0, 256, (48, 64, 3), np.uint8)
+    b = rng.integers(0, 256, (48, 64, 3), np.uint8)
+    k = rng.random((48, 64)).astype(np.float32)
+    k[:4], k[4:8] = 0.0, 1.0
+    mix = _lin(a) + (_lin(b) - _lin(a)) * k[..., None]
+    enc = np.where(mix <= 0.0031308, mix * 12.92, 1.055 * mix ** (1 / 2.4) - 0.055)
+    want = np.clip(np.round(enc * 255), 0, 255)
+    got = blend_linear(a, b, k)
+    assert np.abs(got.astype(int) - want).max() <= 1
+    assert (got[:4] == a[:4]).all() and (got[4:8] == b[4:8]).all()

@@ -9,6 +9,7 @@ import subprocess
 import time
 
 import cv2
+import numpy as np
 import pytest
 
 from limner.bench.metrics import ssim
@@ -54,12 +55,20 @@ def test_fullscreen_window_shows_the_model_output(xserver, teacher_onnx, tmp_pat
                           str(clip), "--loop", "--fullscreen", "--resolution", f"{W}x{H}", "--frames", "100000"],
                          env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     # what the model produces for the frame the window shows (the clip is MJPG: decode it
-    # the way the pipeline does)
+    # the way the pipeline does; OpenCV's writer codes the first frame unlike the rest, so
+    # each distinct decoded frame is a candidate for what is on screen)
     cap = cv2.VideoCapture(str(clip))
-    ok, frame = cap.read()
+    frames = []
+    while True:
+        ok, frame = cap.read()
+        if not ok:
+            break
+        if not any(np.array_equal(frame, f) for f in frames):
+            frames.append(frame)
     cap.release()
     model = load_model(teacher_onnx, threads=1)
-    expected = model.run(prepare(frame, (W, H), model.size_multiple, "crop"))
+    outputs = [model.run(prepare(f, (W, H), model.size_multiple, "crop")) for f in frames]
+    expected = outputs[0]
     best, shot = -1.0, None
     try:
         deadline = time.monotonic() + 40  # the first frame needs the model loaded and run once
@@ -68,7 +77,7 @@ def test_fullscreen_window_shows_the_model_output(xserver, teacher_onnx, tmp_pat
             shot = read_xwd(subprocess.run(["xwd", "-root", "-silent", "-display", xserver],
                                            capture_output=True, check=True).stdout)
             assert shot.shape == expected.shape  # the window covers the whole screen
-            best = max(best, ssim(shot, expected))
+            best = max([best] + [ssim(shot, e) for e in outputs])
     finally:
         p.terminate()
         out, err = p.communicate(timeout=60)
