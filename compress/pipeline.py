@@ -89,13 +89,15 @@ def _init_from(path: str, fresh: torch.nn.Module, name: str) -> torch.nn.Module:
     """Start a student from a checkpoint (e.g. one distilled with other targets). The
     architecture must be the one the recipe's knobs build, except that a student with
     frame context may start from the same student without it (the context block starts
-    as the identity)."""
+    as the identity), and a student may start from one at another `downscale`: the body
+    is the same, and the first and last convs, whose channel counts follow the
+    downscale, keep their fresh initialisation."""
     try:
         old = ckptmod.load(Path(path)).model()
     except ckptmod.CheckpointError as e:
         raise CompressError(f"student {name}: init: {e}") from None
     def shape(args: dict) -> dict:
-        return {k: v for k, v in args.items() if k not in ("knobs", "context")}
+        return {k: v for k, v in args.items() if k not in ("knobs", "context", "downscale")}
     if shape(old.model_args) != shape(fresh.model_args) or \
             old.model_args.get("context", 0) not in (0, fresh.model_args.get("context", 0)):
         raise CompressError(f"student {name}: init={path} holds a different architecture "
@@ -106,9 +108,18 @@ def _init_from(path: str, fresh: torch.nn.Module, name: str) -> torch.nn.Module:
     fresh_sd = fresh.state_dict()
     targets = [k for k in fresh_sd if not (film and k.startswith(film))]
     old_sd = old.state_dict()
-    if len(targets) != len(old_sd) or any(fresh_sd[k].shape != v.shape for k, v in zip(targets, old_sd.values())):
+    if len(targets) != len(old_sd):
         raise CompressError(f"student {name}: init={path}: weights do not fit the recipe's knobs")
-    fresh_sd.update(dict(zip(targets, old_sd.values())))
+    pairs = list(zip(targets, old_sd.values()))
+    misfit = [k for k, v in pairs if fresh_sd[k].shape != v.shape]
+    rescaled = old.model_args.get("downscale", 1) != fresh.model_args.get("downscale", 1)
+    if misfit and not rescaled:
+        raise CompressError(f"student {name}: init={path}: weights do not fit the recipe's knobs")
+    if rescaled:  # only the first and last convs (weight and bias) may differ
+        ends = set(targets[:2] + targets[-2:])
+        if not set(misfit) <= ends:
+            raise CompressError(f"student {name}: init={path}: weights do not fit the recipe's knobs")
+    fresh_sd.update({k: v for k, v in pairs if k not in misfit})
     fresh.load_state_dict(fresh_sd)
     return fresh.train()
 

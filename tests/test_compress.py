@@ -181,6 +181,11 @@ def test_int8_candidates_are_really_int8(tiny_run, photos):
                      and produced[n.input[1]].op_type == "DequantizeLinear"
                      and produced[n.input[1]].input[0] in int8]
         assert len(quantized) >= 0.8 * len(convs) and len(quantized) >= 1
+        # the output tail after the last conv (Sigmoid, scaling, Cast, layout) stays unquantized:
+        # the only quantize step after the last conv is on that conv's own output
+        last = max(i for i, n in enumerate(q.graph.node) if n.op_type == "Conv")
+        tail_q = [n for n in q.graph.node[last + 1:] if n.op_type == "QuantizeLinear"]
+        assert all(produced[n.input[0]] is q.graph.node[last] for n in tail_q)
         meta = load_model(run / f"{name}-int8.onnx", threads=1).meta
         assert meta.precision == "int8" and meta.calibration["method"] == "minmax"
         assert meta.calibration["int8_mac_share"] >= 0.8
@@ -215,6 +220,15 @@ def test_student_init_checkpoint_must_match_knobs(tmp_path):
     x = torch.rand(1, 3, 64, 96)
     with torch.no_grad():
         assert torch.allclose(ctx(x), net.eval()(x), atol=1e-6)
+    # another downscale: the body carries over, the first and last convs start fresh
+    other = 4 if knobs["downscale"] != 4 else 2
+    fresh = build("student", **knobs | {"downscale": other})
+    first_before = fresh.state_dict()[next(iter(fresh.state_dict()))].clone()
+    moved = _init_from(str(tmp_path / "tiny.pt"), fresh, "tiny-d").state_dict()
+    old_sd = net.state_dict()
+    keys = list(moved)
+    assert torch.equal(moved[keys[0]], first_before)          # first conv: fresh
+    assert all(torch.equal(moved[k], old_sd[k]) for k in keys[2:-2])  # body: carried over
     with pytest.raises(CompressError, match="different architecture"):
         _init_from(str(tmp_path / "tiny.pt"), build("student", **asdict(PRESETS["s-dw"])), "dw")
     with pytest.raises(CompressError, match="no such checkpoint"):
