@@ -7,6 +7,7 @@ import matplotlib
 
 matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
+from matplotlib.text import Text  # noqa: E402
 
 COLOURS = {"fp32": "#1f77b4", "int8": "#d62728"}
 LABEL = {"ms_ssim": "MS-SSIM to the teacher (higher is better)",
@@ -24,6 +25,33 @@ def frontier(points: list[tuple[float, float]], higher_better: bool) -> list[int
         if not dominated:
             keep.append(i)
     return keep
+
+
+def place_labels(fig, ax, pts: list[tuple[float, float]], names: list[str]) -> list:
+    """Label each point beside it; where a label would overlap one already placed, try
+    places above and below it (then on its left), with a thin leader line once it is
+    away from its point. Models of similar speed and quality sit in clusters, where
+    labels at one fixed offset print over each other. Returns the labels' bounding boxes
+    in display coordinates."""
+    fig.canvas.draw()  # fixes the axes limits and transforms the boxes are measured in
+    renderer = fig.canvas.get_renderer()
+    steps = [0.0] + [d * k for k in range(1, 12) for d in (-1.0, 1.0)]
+    tries = [(6.0, 4.0 + 11.0 * k) for k in steps] + [(-6.0, 4.0 + 11.0 * k) for k in steps]
+    placed = []
+    for i in sorted(range(len(pts)), key=lambda k: -pts[k][1]):
+        for n, (dx, dy) in enumerate(tries):
+            far = n > 0
+            t = ax.annotate(names[i], pts[i], textcoords="offset points", xytext=(dx, dy), fontsize=8,
+                            ha="left" if dx > 0 else "right",
+                            arrowprops=dict(arrowstyle="-", lw=0.5, color="#888888", shrinkA=0, shrinkB=3)
+                            if far else None)
+            t.update_positions(renderer)
+            box = Text.get_window_extent(t, renderer)  # the text alone, not its leader line
+            if not any(box.overlaps(b) for b in placed) or n == len(tries) - 1:
+                break
+            t.remove()
+        placed.append(box)
+    return placed
 
 
 def pareto_plot(rep: dict, path: Path) -> None:
@@ -49,9 +77,7 @@ def pareto_plot(rep: dict, path: Path) -> None:
     if len(front) > 1:
         ax.step([p[0] for p in front], [p[1] for p in front], where="post" if not hib else "pre",
                 color="#555555", lw=1.2, ls="-", zorder=2, label="Pareto frontier")
-    for (x, y), r in zip(pts, rows):
-        ax.annotate(r["name"] + (" (teacher)" if r["is_teacher"] else ""), (x, y),
-                    textcoords="offset points", xytext=(5, 4), fontsize=8)
+    place_labels(fig, ax, pts, [r["name"] + (" (teacher)" if r["is_teacher"] else "") for r in rows])
     floor = rep["floor"][axis]["mean"]
     ax.axvline(floor, color="#2ca02c", ls=":", lw=1.3, label=f"teacher's noise floor ({floor:.3g})")
     ax.axhline(cfg["min_fps"], color="#ff7f0e", ls="--", lw=1.1, label=f"min fps {cfg['min_fps']:g}")

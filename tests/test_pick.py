@@ -83,3 +83,23 @@ def test_bad_inputs_are_named(report, tmp_path):
         pick(tmp_path / "nowhere")
     with pytest.raises(PickError, match="--resolution 1920x1080"):
         pick(report, min_fps=1, resolution="1920x1080")
+
+
+def test_plot_labels_in_a_cluster_do_not_overlap():
+    """Labels of models at nearly the same (quality, fps) are moved apart (common practice
+    for scatter labels, no source); matplotlib measures the boxes."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    from limner.bench.plots import place_labels
+
+    fig, ax = plt.subplots(figsize=(8, 5.5), dpi=110)
+    pts = [(0.74 + 0.001 * k, 18.0 + 0.2 * k) for k in range(6)] + [(0.62, 47.0), (1.0, 0.7)]
+    ax.scatter(*zip(*pts))
+    ax.set_yscale("log")
+    boxes = place_labels(fig, ax, pts, [f"half-ctx-variant-{k}" for k in range(len(pts))])
+    plt.close(fig)
+    assert len(boxes) == len(pts)
+    assert not any(a.overlaps(b) for i, a in enumerate(boxes) for b in boxes[i + 1:])
