@@ -106,6 +106,7 @@ def test_opening_hours():
     ('[[play]]\nmodel = "nowhere.onnx"\n', "play model 'nowhere.onnx' not found"),
     ('[[play]]\nmodel = "{model}"\nstrength = 1.5\n', "strength=1.5"),
     ('[display]\nrotate = 45\n', "display.rotate=45"),
+    ('[inference]\nworkers = -1\n', "inference.workers=-1"),
 ])
 def test_show_files_name_the_problem(text, pattern, tmp_path, teacher_onnx):
     show = tmp_path / "show.toml"
