@@ -53,7 +53,7 @@ class LiveStats:
     rss_end_mb: float = 0.0
     reconnects: int = 0
     resolution_changes: int = 0
-    captured: int = 0     # frames the source delivered while the show ran
+    captured: int = 0     # source frames from the first shown to the last shown
     workers: int = 1
     output: str | None = None
     sizes: dict[str, int] = field(default_factory=dict)
@@ -139,7 +139,7 @@ class Live:
         self._workers = [threading.Thread(target=self._infer_loop, args=(i,), name=f"inference-{i}", daemon=True)
                          for i in range(self.workers)]
 
-    # -- inference thread -------------------------------------------------------------
+    # -- inference workers ------------------------------------------------------------
     def _stylise(self, x: np.ndarray) -> np.ndarray:
         pl = self.playlist
         # the presenter thread moves the playlist on: read its state once
