@@ -8,7 +8,7 @@ from __future__ import annotations
 import hashlib
 import json
 import time
-from dataclasses import asdict
+from dataclasses import asdict, replace
 from pathlib import Path
 
 import numpy as np
@@ -26,7 +26,7 @@ from .export import export, export_model
 from .lossnet import build_loss_net
 from .macs import count_macs, count_params
 from .prune import conv_weight_count, prune
-from .recipe import Recipe
+from .recipe import LossWeights, Recipe
 from .registry import build
 
 
@@ -160,10 +160,10 @@ def compress(teacher: str, content: list[str], recipe: Recipe, out: Path) -> dic
     cache = build_cache(tmodel, splits["distillation"], recipe, out / "work" / "cache.npz")
     _write_json(manifest_path, manifest)
 
-    def base_meta(name: str, role: str, parent: str, entry: dict) -> ModelMeta:
+    def base_meta(name: str, role: str, parent: str, entry: dict, loss: LossWeights) -> ModelMeta:
         return ModelMeta(role=role, precision="fp32", style=tmodel.meta.style, size_multiple=1,
                          loss_network=tmodel.meta.loss_network, parent=parent, name=name,
-                         recipe={"entry": entry, "distill_loss": asdict(recipe.loss),
+                         recipe={"entry": entry, "distill_loss": asdict(loss),
                                  "distill_loss_network": source.describe()},
                          data_sha256=seen)
 
@@ -190,9 +190,11 @@ def compress(teacher: str, content: list[str], recipe: Recipe, out: Path) -> dic
         if spec.init:
             net = _init_from(spec.init, net, spec.name)
             entry["init_sha256"] = file_sha256(Path(spec.init))
-        net, info = distill(net, cache, recipe, spec.steps, spec.lr, lossnet, out / "work" / spec.name,
+        r = replace(recipe, loss=spec.losses(recipe.loss))
+        net, info = distill(net, cache, r, spec.steps, spec.lr, lossnet, out / "work" / spec.name,
                             f"distill {spec.name}", {"name": spec.name})
-        path = export_model(net, base_meta(spec.name, "student", teacher_sha, entry), out / f"{spec.name}.onnx")
+        path = export_model(net, base_meta(spec.name, "student", teacher_sha, entry, r.loss),
+                            out / f"{spec.name}.onnx")
         record(spec.name, path, net, entry, {"distill": info, "wall_s": time.monotonic() - t0})
         log(f"{spec.name}: {count_params(net):,} parameters, {count_macs(net, 360, 640) / 1e9:.2f} GMACs "
             f"at 640x360, {info['steps']} steps in {info['seconds'] / 60:.1f} min")
@@ -214,7 +216,8 @@ def compress(teacher: str, content: list[str], recipe: Recipe, out: Path) -> dic
         entry = {**asdict(spec), "role": "pruned", "parent": parent["sha256"], "parent_name": spec.parent}
         net, info = distill(net, cache, recipe, spec.steps, spec.lr, lossnet, work, f"recover {spec.name}",
                             {"name": spec.name})
-        path = export_model(net, base_meta(spec.name, "pruned", parent["sha256"], entry), out / f"{spec.name}.onnx")
+        path = export_model(net, base_meta(spec.name, "pruned", parent["sha256"], entry, recipe.loss),
+                            out / f"{spec.name}.onnx")
         record(spec.name, path, net, entry, {"distill": info, "before_pruning": before,
                                              "wall_s": time.monotonic() - t0})
         c = manifest["candidates"][spec.name]

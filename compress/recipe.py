@@ -2,7 +2,7 @@
 int8 and the distillation losses."""
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, fields, replace
 
 from .students import StudentKnobs
 
@@ -40,9 +40,20 @@ class StudentSpec:
     steps: int = 2000
     lr: float = 1e-3
     init: str = ""                 # optional student checkpoint (same knobs) to start from
+    loss: dict = field(default_factory=dict)  # this student's changes to [loss], e.g. {gram = 0.0}
 
     def __post_init__(self) -> None:
         StudentKnobs(**self.knobs)  # validates knob names and values
+        known = {f.name for f in fields(LossWeights)}
+        for k in self.loss:
+            if k not in known:
+                raise ValueError(f"student {self.name}: loss.{k}: unknown loss setting "
+                                 f"(known: {', '.join(sorted(known))})")
+        LossWeights(**self.loss)  # validates the values
+
+    def losses(self, base: LossWeights) -> LossWeights:
+        """The recipe's [loss] with this student's changes."""
+        return replace(base, **self.loss)
         if self.steps < 1:
             raise ValueError(f"student {self.name}: steps={self.steps} must be at least 1")
 

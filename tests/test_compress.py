@@ -41,6 +41,7 @@ steps = 6
 name = "b"
 knobs = {width = 0.25, blocks = 1, depthwise = true}
 steps = 4
+loss = {gram = 0.0}
 
 [[prune]]
 name = "a-p30"
@@ -151,6 +152,10 @@ def test_tiny_recipe_end_to_end(tiny_run):
         assert m.meta.name == name and m.meta.data_sha256  # every image it saw is recorded
         for k in ("parameters", "macs_640x360", "file_bytes", "sha256", "wall_s"):
             assert c[k], (name, k)
+    # a student's own loss changes apply to it alone, and its file records what it used
+    losses = {n: load_model(run / f"{n}.onnx", threads=1).meta.recipe["distill_loss"] for n in ("a", "b")}
+    assert losses["b"]["gram"] == 0.0 and losses["a"]["gram"] == 1.0
+    assert losses["a"]["lowpass_l1"] == losses["b"]["lowpass_l1"] == 1.0
     p = man["candidates"]["a-p30"]
     assert p["role"] == "pruned" and p["parent"] == man["candidates"]["a"]["sha256"]
     assert abs(1 - p["conv_weights"] / p["before_pruning"]["conv_weights"] - 0.3) <= 0.05
@@ -233,3 +238,13 @@ def test_student_init_checkpoint_must_match_knobs(tmp_path):
         _init_from(str(tmp_path / "tiny.pt"), build("student", **asdict(PRESETS["s-dw"])), "dw")
     with pytest.raises(CompressError, match="no such checkpoint"):
         _init_from(str(tmp_path / "missing.pt"), net, "tiny")
+
+
+def test_unknown_student_loss_setting_is_named(tmp_path):
+    from limner.compress.recipe import Recipe
+    from limner.runtime import config as cfgmod
+
+    bad = tmp_path / "r.toml"
+    bad.write_text('[[student]]\nname = "a"\nloss = {grm = 0.0}\n')
+    with pytest.raises(cfgmod.ConfigError, match="loss.grm"):
+        cfgmod.load(Recipe, bad)
