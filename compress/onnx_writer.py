@@ -11,9 +11,9 @@ gives exact control over the contract:
   Sigmoid -> *255 -> +0.5 -> Cast uint8 -> (DepthToSpace) -> Transpose (N, H, W, 3) BGR
 
 The layout changes at both ends (a network's first PixelUnshuffle and last PixelShuffle
-included) run on uint8, a quarter of the bytes of float: for a small student that took
-the full-resolution float SpaceToDepth / DepthToSpace / Transpose from about a fifth of
-its onnxruntime time. No Clip is needed: Sigmoid * 255 + 0.5 lies in (0.5, 255.5),
+included) run on uint8, a quarter of the bytes of float (onnxruntime here: Transpose
+0.32 against 0.71 ms, DepthToSpace 1.5 against 3.8 ms at 640x360; a few percent of a
+small student's time in all). No Clip is needed: Sigmoid * 255 + 0.5 lies in (0.5, 255.5),
 which the truncating Cast maps into 0..255.
 """
 from __future__ import annotations

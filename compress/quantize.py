@@ -126,7 +126,6 @@ def output_tail(model: onnx.ModelProto) -> list[str]:
 
 def _quantize(pre: Path, out: Path, frames: list[np.ndarray], spec: Int8Spec, types: IntTypes,
               exclude: list[str], cache: Path) -> None:
-    exclude = list(exclude) + output_tail(onnx.load(str(pre)))
     quantize_static(str(pre), str(out), _Frames(frames, "image"), quant_format=QuantFormat.QDQ,
                     op_types_to_quantize=["Conv", "Relu", "Add", "Resize", "DepthToSpace", "SpaceToDepth"],
                     per_channel=True, reduce_range=types.reduce_range,
@@ -156,12 +155,13 @@ def quantize(fp32_path: Path, out_path: Path, calib: list[np.ndarray], check: li
         total = sum(macs.values())
         cache = tmp / "calib"
         full = tmp / "full.onnx"
-        _quantize(pre, full, calib, spec, types, [], cache)
+        tail = output_tail(pre_model)  # never quantized
+        _quantize(pre, full, calib, spec, types, tail, cache)
         base = _agreement(str(fp32_path), str(full), check)
         gains: list[tuple[float, str]] = []
         for node in macs:
             trial = tmp / "trial.onnx"
-            _quantize(pre, trial, calib, spec, types, [node], cache)
+            _quantize(pre, trial, calib, spec, types, tail + [node], cache)
             gains.append((_agreement(str(fp32_path), str(trial), check) - base, node))
         gains.sort(reverse=True)
         exclude: list[str] = []
@@ -172,7 +172,7 @@ def quantize(fp32_path: Path, out_path: Path, calib: list[np.ndarray], check: li
             if share >= spec.min_int8_mac_share:
                 exclude.append(node)
         final = tmp / "final.onnx"
-        _quantize(pre, final, calib, spec, types, exclude, cache)
+        _quantize(pre, final, calib, spec, types, tail + exclude, cache)
         model = onnx.load(str(final))
     agreement = _agreement(str(fp32_path), model.SerializeToString(), check)
     counts = count_qdq(model)

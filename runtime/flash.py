@@ -57,18 +57,12 @@ def to_linear(img_bgr: np.ndarray) -> np.ndarray:
 
 def blend_linear(prev_bgr: np.ndarray, new_bgr: np.ndarray, k: np.ndarray) -> np.ndarray:
     """prev + (new - prev) * k per pixel, in linear light; uint8 BGR in and out, k (H, W)
-    float32 in [0, 1]. Matches to_srgb8 of the float blend within one 8-bit step."""
+    float32 in [0, 1]. Within one 8-bit step of the float blend encoded by IEC 61966-2-1."""
     lin_prev = cv2.LUT(prev_bgr, _LUT16)
     lin_new = cv2.LUT(new_bgr, _LUT16)
     k = np.ascontiguousarray(k, np.float32)
     mixed = cv2.blendLinear(lin_new, lin_prev, k, 1.0 - k)
     return np.take(_INV16, mixed.astype(np.uint16))
-
-
-def to_srgb8(lin: np.ndarray) -> np.ndarray:
-    lin = np.clip(lin, 0, 1)
-    v = np.where(lin <= 0.0031308, lin * 12.92, 1.055 * np.power(lin, 1 / 2.4) - 0.055)
-    return np.clip(v * 255 + 0.5, 0, 255).astype(np.uint8)
 
 
 def rel_luminance(lin_bgr: np.ndarray) -> np.ndarray:

@@ -10,19 +10,19 @@ from __future__ import annotations
 
 import heapq
 import threading
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 
 
-@dataclass(order=True)
+@dataclass
 class Output:
-    seq: int
-    image: np.ndarray = field(compare=False)
-    t_capture: float = field(compare=False)
-    t_done: float = field(compare=False)
-    size: tuple[int, int] = field(compare=False)
-    busy_s: float = field(default=0.0, compare=False)  # the worker's time on this frame
+    seq: int                  # the captured frame's number; -1 for a holding card
+    image: np.ndarray
+    t_capture: float
+    t_done: float
+    size: tuple[int, int]
+    busy_s: float = 0.0       # the worker's time on this frame
 
 
 class InFlight:
