@@ -22,6 +22,7 @@ from limner.runtime.model import Model
 from limner.runtime.progress import Progress
 
 from . import checkpoint as ckptmod
+from . import frame_norm
 from .checkpoint import atomic_write_bytes
 from .content import ContentSet, sample_batch, sample_frame
 from .losses import gram
@@ -177,15 +178,28 @@ def distill(net: nn.Module, cache: dict[str, np.ndarray], recipe: Recipe, steps:
             "seconds": seconds_before + time.monotonic() - t0, "last": dict(logs)}), ckpt_path)
 
     with_frames = getattr(net, "context_at", -1) >= 0 and "frames" in cache
+    # instance-normalised nets (a pruned teacher) normalise crops with their frame's statistics;
+    # a batch then holds crops of one frame, so one whole frame runs per step
+    norm_frames = frame_norm.has_norms(net) and "frames" in cache
+    per = int(np.bincount(cache["frame_index"]).min()) if norm_frames else 0
     net.train()
     try:
         while step < steps:
             rng = np.random.default_rng([recipe.seed, 104729, step])
-            idx = rng.integers(0, n, recipe.batch)
+            if norm_frames:
+                f = int(rng.integers(0, int(cache["frame_index"].max()) + 1))
+                idx = np.flatnonzero(cache["frame_index"] == f)[rng.integers(0, per, recipe.batch)]
+            else:
+                idx = rng.integers(0, n, recipe.batch)
             x, t = _t(cache["inputs"][idx]), _t(cache["targets"][idx])
             noise = torch.from_numpy(rng.normal(0, recipe.loss.noise_sigma / 255.0, x.shape).astype(np.float32))
             frame = _t(cache["frames"][cache["frame_index"][idx]]) if with_frames else None
-            total, logs = loss.total(loss.terms(net, x, t, noise, frame))
+            if norm_frames:
+                stats = frame_norm.frame_stats(net, _t(cache["frames"][f:f + 1]))
+                with frame_norm.use(net, frame_norm.select(stats, torch.zeros(len(idx), dtype=torch.long))):
+                    total, logs = loss.total(loss.terms(net, x, t, noise))
+            else:
+                total, logs = loss.total(loss.terms(net, x, t, noise, frame))
             for g in opt.param_groups:
                 g["lr"] = lr_at(step)
             opt.zero_grad(set_to_none=True)

@@ -143,6 +143,9 @@ def compress(teacher: str, content: list[str], recipe: Recipe, out: Path) -> dic
         teacher_onnx = tpath
     else:
         raise CompressError(f"{teacher}: expected a Limner checkpoint (.pt) or model (.onnx)")
+    if tpath.suffix != ".pt" and any(p.parent == "teacher" for p in recipe.prune):
+        raise CompressError(f"{teacher}: pruning the teacher needs its checkpoint (.pt), not an ONNX "
+                            "file; distillation alone works from ONNX")
     tmodel = load_model(teacher_onnx)
     if tmodel.meta.role != "teacher":
         raise CompressError(f"{teacher}: role is {tmodel.meta.role!r}, expected a teacher")
@@ -204,8 +207,12 @@ def compress(teacher: str, content: list[str], recipe: Recipe, out: Path) -> dic
             log(f"{spec.name}: done earlier, skipped")
             continue
         t0 = time.monotonic()
-        parent = manifest["candidates"][spec.parent]
-        pnet = ckptmod.load(out / "work" / spec.parent / "checkpoint.pt").model()
+        if spec.parent == "teacher":
+            parent = {"sha256": teacher_sha, "file_bytes": teacher_onnx.stat().st_size}
+            pnet = ckptmod.load(tpath).model()
+        else:
+            parent = manifest["candidates"][spec.parent]
+            pnet = ckptmod.load(out / "work" / spec.parent / "checkpoint.pt").model()
         work = out / "work" / spec.name
         if (work / "checkpoint.pt").exists():
             net = ckptmod.load(work / "checkpoint.pt").model()
@@ -214,9 +221,10 @@ def compress(teacher: str, content: list[str], recipe: Recipe, out: Path) -> dic
         before = {"parameters": count_params(pnet), "conv_weights": conv_weight_count(pnet),
                   "macs_640x360": count_macs(pnet, 360, 640), "file_bytes": parent["file_bytes"]}
         entry = {**asdict(spec), "role": "pruned", "parent": parent["sha256"], "parent_name": spec.parent}
-        net, info = distill(net, cache, recipe, spec.steps, spec.lr, lossnet, work, f"recover {spec.name}",
+        r = replace(recipe, loss=spec.losses(recipe.loss))
+        net, info = distill(net, cache, r, spec.steps, spec.lr, lossnet, work, f"recover {spec.name}",
                             {"name": spec.name})
-        path = export_model(net, base_meta(spec.name, "pruned", parent["sha256"], entry, recipe.loss),
+        path = export_model(net, base_meta(spec.name, "pruned", parent["sha256"], entry, r.loss),
                             out / f"{spec.name}.onnx")
         record(spec.name, path, net, entry, {"distill": info, "before_pruning": before,
                                              "wall_s": time.monotonic() - t0})

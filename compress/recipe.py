@@ -44,34 +44,52 @@ class StudentSpec:
 
     def __post_init__(self) -> None:
         StudentKnobs(**self.knobs)  # validates knob names and values
-        known = {f.name for f in fields(LossWeights)}
-        for k in self.loss:
-            if k not in known:
-                raise ValueError(f"student {self.name}: loss.{k}: unknown loss setting "
-                                 f"(known: {', '.join(sorted(known))})")
-        LossWeights(**self.loss)  # validates the values
+        _check_loss(f"student {self.name}", self.loss)
+        if self.steps < 1:
+            raise ValueError(f"student {self.name}: steps={self.steps} must be at least 1")
 
     def losses(self, base: LossWeights) -> LossWeights:
         """The recipe's [loss] with this student's changes."""
         return replace(base, **self.loss)
-        if self.steps < 1:
-            raise ValueError(f"student {self.name}: steps={self.steps} must be at least 1")
+
+
+def _check_loss(owner: str, loss: dict) -> None:
+    """Per-candidate loss changes: names of LossWeights fields, valid values."""
+    known = {f.name for f in fields(LossWeights)}
+    for k in loss:
+        if k not in known:
+            raise ValueError(f"{owner}: loss.{k}: unknown loss setting (known: {', '.join(sorted(known))})")
+    LossWeights(**loss)  # validates the values
 
 
 @dataclass
 class PruneSpec:
     name: str
-    parent: str                    # a student name in this recipe
+    parent: str                    # a student name in this recipe, or "teacher" (needs its checkpoint)
     ratio: float = 0.3             # fraction of the parent's conv weights removed
     steps: int = 800               # recovery distillation
     lr: float = 5e-4
-    rank: str = "l1"               # filter L1 norm (Li et al. 2017)
+    # "l1": filter L1 norm (Li et al. 2017), for students; "norm_scale": instance-norm
+    # |gamma| (Liu et al. 2017), for the teacher; "auto": whichever fits the parent
+    rank: str = "auto"
+    loss: dict = field(default_factory=dict)  # changes to [loss] for the recovery, e.g. {gram = 0.0}
 
     def __post_init__(self) -> None:
+        _check_loss(f"prune {self.name}", self.loss)
+        if self.steps < 1:
+            raise ValueError(f"prune {self.name}: steps={self.steps} must be at least 1")
         if not 0.05 <= self.ratio <= 0.9:
             raise ValueError(f"prune {self.name}: ratio={self.ratio} must be between 0.05 and 0.9")
-        if self.rank != "l1":
-            raise ValueError(f"prune {self.name}: rank={self.rank!r}; only 'l1' is implemented")
+        if self.rank not in ("auto", "l1", "norm_scale"):
+            raise ValueError(f"prune {self.name}: rank={self.rank!r}; expected 'auto', 'l1' or 'norm_scale'")
+        fits = "norm_scale" if self.parent == "teacher" else "l1"
+        if self.rank not in ("auto", fits):
+            raise ValueError(f"prune {self.name}: rank={self.rank!r} does not fit parent {self.parent!r}; "
+                             f"it is ranked by {fits!r}")
+
+    def losses(self, base: LossWeights) -> LossWeights:
+        """The recipe's [loss] with this entry's changes."""
+        return replace(base, **self.loss)
 
 
 @dataclass
@@ -129,9 +147,12 @@ class Recipe:
         if dup:
             raise ValueError(f"candidate name {sorted(dup)[0]!r} appears twice in the recipe")
         students = {s.name for s in self.student}
+        if "teacher" in names:
+            raise ValueError("candidate name 'teacher' is reserved for the teacher")
         for p in self.prune:
-            if p.parent not in students:
-                raise ValueError(f"prune {p.name}: parent {p.parent!r} is not a student in this recipe")
+            if p.parent not in students and p.parent != "teacher":
+                raise ValueError(f"prune {p.name}: parent {p.parent!r} is neither a student in this recipe "
+                                 "nor 'teacher'")
         for m in self.int8.models:
             if m not in names:
                 raise ValueError(f"int8.models: {m!r} is not a candidate in this recipe")

@@ -21,20 +21,30 @@ def _norm_relu(c: int) -> list[nn.Module]:
 class Teacher(nn.Module):
     size_multiple = 4
 
-    def __init__(self, channels: tuple[int, int, int] = (32, 64, 128), blocks: int = 5) -> None:
+    def __init__(self, channels: tuple[int, int, int] = (32, 64, 128), blocks: int = 5,
+                 hidden: list[int] | None = None, up_channels: list[int] | None = None) -> None:
+        """`hidden` (each residual block's inner width) and `up_channels` (the two
+        upsampling convs' widths) default to the published c3 and (c2, c1); pruning sets them."""
         super().__init__()
         c1, c2, c3 = channels
-        self.model_args = {"channels": [c1, c2, c3], "blocks": blocks}
+        self.model_args: dict = {"channels": [c1, c2, c3], "blocks": blocks}
+        if hidden is not None or up_channels is not None:
+            self.model_args |= {"hidden": list(hidden or [c3] * blocks),
+                                "up_channels": list(up_channels or [c2, c1])}
+        hidden = list(hidden or [c3] * blocks)
+        u1, u2 = up_channels or (c2, c1)
+        if len(hidden) != blocks:
+            raise ValueError(f"hidden={hidden}: expected {blocks} widths, one per residual block")
         layers: list[nn.Module] = [conv(3, c1, 9, reflect=True), *_norm_relu(c1),
                                    conv(c1, c2, 3, 2, reflect=True), *_norm_relu(c2),
                                    conv(c2, c3, 3, 2, reflect=True), *_norm_relu(c3)]
-        for _ in range(blocks):
+        for h in hidden:
             layers.append(Residual(nn.Sequential(
-                conv(c3, c3, 3, reflect=True), *_norm_relu(c3),
-                conv(c3, c3, 3, reflect=True), nn.InstanceNorm2d(c3, affine=True))))
-        layers += [NearestUp2(), conv(c3, c2, 3, reflect=True), *_norm_relu(c2),
-                   NearestUp2(), conv(c2, c1, 3, reflect=True), *_norm_relu(c1),
-                   conv(c1, 3, 9, reflect=True), Squash()]
+                conv(c3, h, 3, reflect=True), *_norm_relu(h),
+                conv(h, c3, 3, reflect=True), nn.InstanceNorm2d(c3, affine=True))))
+        layers += [NearestUp2(), conv(c3, u1, 3, reflect=True), *_norm_relu(u1),
+                   NearestUp2(), conv(u1, u2, 3, reflect=True), *_norm_relu(u2),
+                   conv(u2, 3, 9, reflect=True), Squash()]
         self.net = nn.Sequential(*layers)
 
     def forward(self, x: torch.Tensor) -> torch.Tensor:

@@ -69,3 +69,19 @@ def test_bench_refuses_held_out_images_a_model_saw(candidates, teacher_onnx, tmp
                 "--config", str(candidates / "tiny.toml"), "-o", str(tmp_path / "rep")], tmp_path)
     assert r.returncode == 1
     assert "chelsea.jpg was among the images" in r.stderr and "Traceback" not in r.stderr
+
+
+def test_peak_rss_is_the_model_process_own(candidates):
+    """The speed subprocess reports its own peak memory, not its parent's: the kernel's
+    per-process high-water mark (VmHWM in /proc/PID/status, proc(5)); ru_maxrss would carry
+    the parent's peak across fork and exec (getrusage(2))."""
+    from limner.bench.speed import measure_in_subprocess, peak_rss_mb
+
+    ballast = bytearray(600 * 1024 * 1024)
+    for i in range(0, len(ballast), 4096):   # touch every page so it is resident
+        ballast[i] = 1
+    parent = peak_rss_mb()
+    assert parent > 600
+    r = measure_in_subprocess(str(candidates / "tiny" / "tiny.onnx"), HELD_OUT[:1], [(64, 64)], [1], 0, 1)
+    del ballast
+    assert 20 < r["peak_rss_mb"] < parent - 300

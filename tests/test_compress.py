@@ -248,3 +248,146 @@ def test_unknown_student_loss_setting_is_named(tmp_path):
     bad.write_text('[[student]]\nname = "a"\nloss = {grm = 0.0}\n')
     with pytest.raises(cfgmod.ConfigError, match="loss.grm"):
         cfgmod.load(Recipe, bad)
+
+
+def _small_teacher():
+    from limner.compress.teacher import Teacher
+    torch.manual_seed(0)
+    net = Teacher(channels=(8, 16, 24), blocks=2).eval()
+    with torch.no_grad():  # trained-looking scales and shifts, so beta matters (set in float32:
+        for m in net.modules():  # prune_to builds float32 layers, which must hold them exactly)
+            if isinstance(m, torch.nn.InstanceNorm2d):
+                m.weight.uniform_(0.5, 1.5)
+                m.bias.normal_(0, 0.5)
+    return net.double()
+
+
+def test_pruning_teacher_channels_with_zero_scale_is_exact():
+    """A teacher channel whose instance-norm scale is zero is the constant beta (by the
+    definition of instance normalisation, Ulyanov et al. 2016); the next instance norm
+    removes a constant, and the last conv gets it folded into its bias (Liu et al. 2017
+    prune by this scale). Removing such channels must leave the output unchanged
+    (float64: summation order only) while the convs shrink."""
+    net = _small_teacher()
+    keep = {}
+    with torch.no_grad():
+        for space, s in _spaces(net).items():
+            drop = torch.arange(0, s.size, 3)
+            for n in s.norms:
+                n.weight[drop] = 0
+            keep[space] = torch.tensor([i for i in range(s.size) if i % 3])
+    small = prune_to(net, keep).double()
+    x = torch.rand(2, 3, 64, 96, dtype=torch.float64)
+    with torch.no_grad():
+        assert (net(x) - small(x)).abs().max() < 1e-9
+    assert conv_weight_count(small) < conv_weight_count(net)
+    assert small.model_args["hidden"] == [16, 16] and small.model_args["up_channels"] == [10, 5]
+    from limner.compress.registry import rebuild
+    again = rebuild("teacher", small.model_args)
+    assert conv_weight_count(again) == conv_weight_count(small)
+
+
+def test_teacher_pruning_ranks_by_norm_scale_and_reaches_ratio():
+    net = _small_teacher()
+    h0 = _spaces(net)["h0"]
+    with torch.no_grad():  # make one inner channel of the first block the least important
+        h0.norms[0].weight[5] = 1e-3
+    small = prune(net, 0.5)
+    achieved = 1 - conv_weight_count(small) / conv_weight_count(net)
+    assert abs(achieved - 0.5) <= 0.05
+    kept = _spaces(small)["h0"].producers[0][0].weight
+    assert kept.shape[0] < h0.size
+    # the lowest-|gamma| channel went: no kept filter equals its filter
+    gone = h0.producers[0][0].weight[5]
+    assert not any(torch.equal(gone, w) for w in kept)
+    # and the kept channels are exactly those with the largest |gamma| (Liu et al. 2017)
+    g = h0.norms[0].weight.detach().abs()
+    kept_g = _spaces(small)["h0"].norms[0].weight.detach().abs()
+    assert torch.equal(torch.sort(kept_g).values, torch.sort(torch.topk(g, len(kept_g)).values).values)
+
+
+def test_frame_statistics_make_a_crop_match_the_frame():
+    """Instance norm with the whole frame's statistics: for a pointwise network the
+    output on a crop is exactly the crop of the output on the frame; torch's own
+    InstanceNorm2d (the reference) gives the same output when the crop is the frame."""
+    from limner.compress import frame_norm
+
+    torch.manual_seed(0)
+    net = torch.nn.Sequential(torch.nn.Conv2d(3, 6, 1), torch.nn.InstanceNorm2d(6, affine=True),
+                              torch.nn.ReLU(), torch.nn.Conv2d(6, 6, 1), torch.nn.InstanceNorm2d(6, affine=True)).double()
+    with torch.no_grad():
+        for m in net.modules():
+            if isinstance(m, torch.nn.InstanceNorm2d):
+                m.weight.uniform_(0.5, 1.5)
+                m.bias.normal_(0, 0.5)
+    frame = torch.rand(2, 3, 40, 56, dtype=torch.float64)
+    crop = frame[:, :, 8:24, 16:48]
+    stats = frame_norm.frame_stats(net, frame)
+    with torch.no_grad():
+        whole = net(frame)
+        with frame_norm.use(net, stats):
+            same = net(frame)
+            inside = net(crop)
+        alone = net(crop)
+    assert (same - whole).abs().max() < 1e-12
+    assert (inside - whole[:, :, 8:24, 16:48]).abs().max() < 1e-12
+    assert (alone - whole[:, :, 8:24, 16:48]).abs().max() > 1e-3   # crop statistics differ
+    picked = frame_norm.select(stats, torch.tensor([1, 1, 0]))
+    assert picked[net[1]][0].shape == (3, 6, 1, 1)
+
+
+PRUNE_TEACHER = """crop = 64
+batch = 2
+cache_crops = 8
+target_frame = "160x96"
+crops_per_frame = 4
+threads = 2
+
+[[prune]]
+name = "t-p50"
+parent = "teacher"
+ratio = 0.5
+steps = 2
+loss = {gram = 0.0}
+
+[int8]
+enabled = false
+"""
+
+
+def test_pruned_teacher_rung_end_to_end(teacher_onnx, tmp_path):
+    """`[[prune]] parent = "teacher"` needs the checkpoint; from it, a smaller teacher
+    whose ONNX file has half the conv weights (within 5%) and runs in onnxruntime."""
+    (tmp_path / "r.toml").write_text(PRUNE_TEACHER)
+    cmd = [PY, "-m", "limner.runtime.cli", "compress", "--content", *PHOTOS, "scenes:3",
+           "--recipe", str(tmp_path / "r.toml")]
+    r = subprocess.run(cmd[:4] + [str(teacher_onnx)] + cmd[4:] + ["-o", str(tmp_path / "x")],
+                       capture_output=True, text=True, timeout=300)
+    assert r.returncode != 0 and "pruning the teacher needs its checkpoint" in r.stderr
+    r = subprocess.run(cmd[:4] + [str(teacher_onnx.parent / "t.pt")] + cmd[4:] + ["-o", str(tmp_path / "run")],
+                       capture_output=True, text=True, timeout=600)
+    assert r.returncode == 0, r.stderr[-3000:]
+    man = json.loads((tmp_path / "run" / "manifest.json").read_text())
+    c = man["candidates"]["t-p50"]
+    assert c["role"] == "pruned" and c["parent"] == man["teacher"]["sha256"]
+    assert abs(1 - c["conv_weights"] / c["before_pruning"]["conv_weights"] - 0.5) <= 0.05
+    m = load_model(tmp_path / "run" / "t-p50.onnx", threads=1)
+    assert m.meta.recipe["distill_loss"]["gram"] == 0.0
+    out = m.run(np.zeros((96, 160, 3), np.uint8))
+    assert out.shape == (96, 160, 3) and out.dtype == np.uint8
+
+
+@pytest.mark.parametrize("body, message", [
+    ('[[prune]]\nname = "p"\nparent = "teacher"\nrank = "l1"\n', "does not fit parent 'teacher'"),
+    ('[[prune]]\nname = "teacher"\nparent = "teacher"\n', "reserved"),
+    ('[[prune]]\nname = "p"\nparent = "nobody"\n', "neither a student"),
+    ('[[prune]]\nname = "p"\nparent = "teacher"\nsteps = 0\n', "steps=0"),
+])
+def test_prune_entry_errors_name_the_value(tmp_path, body, message):
+    from limner.compress.recipe import Recipe
+    from limner.runtime import config as cfgmod
+
+    bad = tmp_path / "r.toml"
+    bad.write_text(body)
+    with pytest.raises(cfgmod.ConfigError, match=message):
+        cfgmod.load(Recipe, bad)

@@ -69,7 +69,9 @@ def test_reconnect_after_stall_and_failure(teacher_onnx):
     assert stats.frames >= 40           # kept producing output frames after recovering
     assert FlakyCamera.opens >= 4       # stalled, failed twice, reopened
     assert stats.reconnects >= 3
-    assert time.monotonic() - t < 30
+    # a hang guard, not a speed check: a stall must not block forever (generous: a loaded
+    # two-core machine ran this test for minutes once)
+    assert time.monotonic() - t < 300
 
 
 def test_governor_steps_with_hysteresis():
