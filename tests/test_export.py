@@ -57,6 +57,19 @@ def test_onnxruntime_matches_torch_on_photos(family, knobs, photos, tmp_path):
             assert (diff <= 1).mean() >= 0.999, (name, h, w, diff.max())
 
 
+def test_teacher_last_conv_is_written_in_polyphase_form(teacher_onnx):
+    """The teacher's 9x9 conv to RGB is written as SpaceToDepth and a 5x5 conv to 12
+    channels (its exactness against PyTorch is the test above, on photos)."""
+    g = onnx.load(str(teacher_onnx)).graph
+    convs = [n for n in g.node if n.op_type == "Conv"]
+    dims = {i.name: list(i.dims) for i in g.initializer}
+    last = convs[-1]
+    assert dims[last.input[1]] == [12, 4 * 32, 5, 5]
+    producer = {n.output[0]: n for n in g.node}
+    assert producer[last.input[0]].op_type == "SpaceToDepth"
+    assert [n.op_type for n in g.node][-2:] == ["DepthToSpace", "Transpose"]
+
+
 def test_exported_file_passes_checker_and_carries_metadata(teacher_onnx):
     m = onnx.load(str(teacher_onnx))
     onnx.checker.check_model(m)  # ONNX's own validator

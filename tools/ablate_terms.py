@@ -2,7 +2,8 @@
 
 Every variant starts from the same student checkpoint (`--init`), trains for `--steps`
 on the same teacher-target cache with the recipe's losses, one term switched off (or
-only one left), and is then scored against the teacher on held-out photos at 640x360
+only one left, or some weights set: `with:gram=0,lowpass_l1=2` is the recipe's [loss]
+with those two changed), and is then scored against the teacher on held-out photos at 640x360
 with the bench's own metrics (MS-SSIM, S-CIELAB CIEDE2000 at the bench's default
 viewing geometry). Results go to a CSV and to stdout as a table.
 
@@ -48,6 +49,28 @@ def stylise(net: torch.nn.Module, bgr: np.ndarray) -> np.ndarray:
     return np.ascontiguousarray(np.floor(y * 255 + 0.5).clip(0, 255).astype(np.uint8))
 
 
+def _weights(variant: str, base):
+    """The loss weights of one variant (see the module docstring)."""
+    kind, _, rest = variant.partition(":")
+    if kind == "with":
+        known = {f.name for f in dataclasses.fields(base)}
+        changes = {}
+        for item in rest.split(","):
+            name, _, value = item.partition("=")
+            if name not in known:
+                raise SystemExit(f"variant {variant!r}: {name!r} is not a loss setting ({', '.join(sorted(known))})")
+            try:
+                changes[name] = float(value)
+            except ValueError:
+                raise SystemExit(f"variant {variant!r}: {name}={value!r} is not a number") from None
+        return dataclasses.replace(base, **changes)
+    if variant != "all" and (kind not in ("no", "only") or rest not in TERMS):
+        raise SystemExit(f"variant {variant!r}: 'all', 'no:TERM', 'only:TERM' with TERM in {', '.join(TERMS)}, "
+                         "or 'with:NAME=W,...'")
+    on = set(TERMS) if variant == "all" else (set(TERMS) - {rest} if kind == "no" else {rest})
+    return dataclasses.replace(base, **{t: (getattr(base, t) or 1.0) if t in on else 0.0 for t in TERMS})
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("--recipe", type=Path, required=True)
@@ -58,7 +81,8 @@ def main() -> None:
     ap.add_argument("--content", nargs="+", required=True, help="held-out photos")
     ap.add_argument("--steps", type=int, default=300)
     ap.add_argument("--variants", nargs="+", default=["all"] + [f"no:{t}" for t in TERMS],
-                    help="'all', 'no:TERM' (all but TERM) or 'only:TERM' (TERM alone)")
+                    help="'all', 'no:TERM' (all but TERM), 'only:TERM' (TERM alone) or "
+                         "'with:NAME=W,...' (the recipe's [loss] with those weights set)")
     ap.add_argument("-o", "--out", type=Path, required=True)
     a = ap.parse_args()
 
@@ -75,12 +99,7 @@ def main() -> None:
     a.out.mkdir(parents=True, exist_ok=True)
     rows = []
     for variant in a.variants:
-        kind, _, term = variant.partition(":")
-        if variant != "all" and (kind not in ("no", "only") or term not in TERMS):
-            raise SystemExit(f"variant {variant!r}: 'all', 'no:TERM' or 'only:TERM' with TERM in {', '.join(TERMS)}")
-        on = set(TERMS) if variant == "all" else (set(TERMS) - {term} if kind == "no" else {term})
-        weights = dataclasses.replace(recipe.loss, **{t: (getattr(recipe.loss, t) or 1.0) if t in on else 0.0
-                                                      for t in TERMS})
+        weights = _weights(variant, recipe.loss)
         r = dataclasses.replace(recipe, loss=weights)
         net = _init_from(a.init, build("student", **spec.knobs), spec.name)
         with tempfile.TemporaryDirectory() as work:
