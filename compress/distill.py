@@ -196,7 +196,7 @@ def distill(net: nn.Module, cache: dict[str, np.ndarray], recipe: Recipe, steps:
             frame = _t(cache["frames"][cache["frame_index"][idx]]) if with_frames else None
             if norm_frames:
                 stats = frame_norm.frame_stats(net, _t(cache["frames"][f:f + 1]))
-                with frame_norm.use(net, frame_norm.select(stats, torch.zeros(len(idx), dtype=torch.long))):
+                with frame_norm.use(net, stats):
                     total, logs = loss.total(loss.terms(net, x, t, noise))
             else:
                 total, logs = loss.total(loss.terms(net, x, t, noise, frame))

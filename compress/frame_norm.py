@@ -44,16 +44,12 @@ def frame_stats(net: nn.Module, frames: torch.Tensor) -> Stats:
     return stats
 
 
-def select(stats: Stats, index: torch.Tensor) -> Stats:
-    """Rows of `stats` per batch item: index (B,) into the frames -> (B, C, 1, 1) each."""
-    return {m: (mu[index], var[index]) for m, (mu, var) in stats.items()}
-
-
 @contextmanager
 def use(net: nn.Module, stats: Stats) -> Iterator[None]:
-    """Within the block every InstanceNorm2d of `net` normalises with `stats`."""
+    """Within the block every InstanceNorm2d of `net` normalises with `stats` (one row
+    per batch item, or one row for a batch cut from one frame)."""
     def replace(mod: nn.InstanceNorm2d, inp: tuple[torch.Tensor], out: torch.Tensor) -> torch.Tensor:
-        mu, var = stats[mod]
+        mu, var = stats[mod]                                       # (B or 1, C, 1, 1)
         y = (inp[0] - mu) / torch.sqrt(var + mod.eps)            # (B, C, H, W)
         return y * mod.weight[None, :, None, None] + mod.bias[None, :, None, None]
     hooks = [m.register_forward_hook(replace) for m in _norms(net)]

@@ -164,6 +164,8 @@ def prune_to(net: Prunable, keep: dict[str, torch.Tensor]) -> Prunable:
         for conv in s.consumers:
             in_idx[id(conv)] = k
             if s.norms and conv is last_conv:
+                if len(s.norms) != 1:  # the level of a channel summed from several norms is not one beta
+                    raise RuntimeError(f"space {name}: cannot fold removed channels of {len(s.norms)} norms")
                 gone = torch.ones(s.size, dtype=torch.bool)
                 gone[k] = False
                 level = torch.relu(s.norms[0].bias.detach()) * gone     # (C_in,)
