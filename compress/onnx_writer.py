@@ -103,6 +103,13 @@ def _execution_order(module: nn.Module) -> list[nn.Module]:
     return [module]
 
 
+def _conv_params(m: nn.Conv2d, fixes: dict[int, WeightFix]) -> tuple[np.ndarray, np.ndarray]:
+    """A conv's weight and bias as float32 arrays, with its export fix applied."""
+    w = m.weight.detach().cpu().numpy().astype(np.float32)
+    b = (m.bias.detach().cpu().numpy() if m.bias is not None else np.zeros(w.shape[0])).astype(np.float32)
+    return fixes[id(m)](w, b) if id(m) in fixes else (w, b)
+
+
 def _emit(g: _Graph, m: nn.Module, x: str, fixes: dict[int, WeightFix]) -> str:
     if isinstance(m, nn.Sequential):
         for child in m:
@@ -111,11 +118,7 @@ def _emit(g: _Graph, m: nn.Module, x: str, fixes: dict[int, WeightFix]) -> str:
     if isinstance(m, Residual):
         return g.op("Add", [x, _emit(g, m.body, x, fixes)], "add")
     if isinstance(m, nn.Conv2d):
-        w = m.weight.detach().cpu().numpy().astype(np.float32)
-        b = (m.bias.detach().cpu().numpy() if m.bias is not None
-             else np.zeros(w.shape[0])).astype(np.float32)
-        if id(m) in fixes:
-            w, b = fixes[id(m)](w, b)
+        w, b = _conv_params(m, fixes)
         kh, kw = m.kernel_size
         ph, pw = m.padding if isinstance(m.padding, tuple) else (m.padding, m.padding)
         if m.padding_mode == "reflect" and (ph or pw):
@@ -129,11 +132,7 @@ def _emit(g: _Graph, m: nn.Module, x: str, fixes: dict[int, WeightFix]) -> str:
                     group=m.groups, dilations=list(m.dilation))
     if isinstance(m, _Polyphase):
         c = m.conv
-        w = c.weight.detach().cpu().numpy().astype(np.float32)
-        b = c.bias.detach().cpu().numpy().astype(np.float32)
-        if id(c) in fixes:
-            w, b = fixes[id(c)](w, b)
-        w, b = _polyphase_weights(w, b)
+        w, b = _polyphase_weights(*_conv_params(c, fixes))
         p = c.padding[0]
         mode = "reflect" if c.padding_mode == "reflect" else "constant"
         x = g.op("Pad", [x, g.const("pads", np.array([0, 0, p, p, 0, 0, p, p], np.int64))], "pad", mode=mode)
