@@ -124,6 +124,21 @@ def _init_from(path: str, fresh: torch.nn.Module, name: str) -> torch.nn.Module:
     return fresh.train()
 
 
+def _int8_probe(types: str, log) -> dict:
+    """A short fp32-against-int8 conv timing on this CPU (bench/int8_probe.py): says up front
+    when int8 candidates cannot be expected to run faster than their parents here."""
+    from limner.bench.int8_probe import ProbeSpec, probe
+
+    r = probe(ProbeSpec(channels=32, rounds=3, runs=3, types=types))
+    log(r.summary())
+    if r.ratio < 1.15:
+        log("  int8 convolutions are not clearly faster than fp32 on this CPU: the int8 candidates "
+            "will likely run no faster than their parents here (they may on the target device: "
+            "run `limner int8-probe` there)")
+    return {"types": r.types, "fp32_ms": r.fp32_ms, "int8_ms": r.int8_ms, "ratio": r.ratio,
+            "spec": asdict(r.spec)}
+
+
 def compress(teacher: str, content: list[str], recipe: Recipe, out: Path) -> dict:
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
@@ -240,6 +255,8 @@ def compress(teacher: str, content: list[str], recipe: Recipe, out: Path) -> dic
         fp32 = [n for n in manifest["candidates"] if manifest["candidates"][n]["precision"] == "fp32"]
         targets = recipe.int8.models or fp32
         calib_set = splits["calibration"]
+        if not all(done(f"{n}-int8") for n in targets):
+            manifest["int8_probe"] = _int8_probe(recipe.int8.types, log)
         for name in targets:
             qname = f"{name}-int8"
             if done(qname):

@@ -10,18 +10,16 @@ at least `min_int8_mac_share` of the conv MACs stay int8.
 from __future__ import annotations
 
 import json
-import platform
 import tempfile
-from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 import onnx
 from onnx import shape_inference
 from onnxruntime.quantization import (CalibrationDataReader, CalibrationMethod, QuantFormat,
-                                      QuantType, quant_pre_process, quantize_static)
+                                      quant_pre_process, quantize_static)
 
-from limner.bench.machine import cpu_features
+from limner.bench.int8 import TYPES, IntTypes, count_qdq, detect_types  # noqa: F401 (re-exported)
 from limner.bench.metrics import ms_ssim
 from limner.runtime.metadata import PREFIX
 from limner.runtime.session import make_session
@@ -31,27 +29,6 @@ from .recipe import Int8Spec
 
 METHODS = {"minmax": CalibrationMethod.MinMax, "entropy": CalibrationMethod.Entropy,
            "percentile": CalibrationMethod.Percentile}
-
-
-@dataclass(frozen=True)
-class IntTypes:
-    label: str
-    activation: QuantType
-    weight: QuantType
-    reduce_range: bool
-
-
-TYPES = {"u8s8": IntTypes("u8s8", QuantType.QUInt8, QuantType.QInt8, False),
-         "u8s8-reduced": IntTypes("u8s8-reduced", QuantType.QUInt8, QuantType.QInt8, True),
-         "s8s8": IntTypes("s8s8", QuantType.QInt8, QuantType.QInt8, False)}
-
-
-def detect_types() -> str:
-    arch = platform.machine().lower()
-    if arch in ("aarch64", "arm64") or arch.startswith("arm"):
-        return "s8s8"
-    feats = set(cpu_features())
-    return "u8s8" if feats & {"avx512_vnni", "avx_vnni"} else "u8s8-reduced"
 
 
 class _Frames(CalibrationDataReader):
@@ -91,28 +68,6 @@ def conv_macs(model: onnx.ModelProto, height: int, width: int) -> dict[str, int]
         oh, ow = shapes[n.output[0]][2:4]
         out[n.name] = oh * ow * co * ci * kh * kw
     return out
-
-
-def count_qdq(model: onnx.ModelProto) -> dict[str, int]:
-    """How many Convs run between DequantizeLinear nodes, and int8 weight initializers
-    (the checks ONNX Runtime's own quantization tests make)."""
-    produced_by = {o: n for n in model.graph.node for o in n.output}
-    int8_inits = {i.name for i in model.graph.initializer
-                  if i.data_type in (onnx.TensorProto.INT8, onnx.TensorProto.UINT8)}
-    q_convs = 0
-    convs = 0
-    for n in model.graph.node:
-        if n.op_type != "Conv":
-            continue
-        convs += 1
-        x, w = (produced_by.get(n.input[0]), produced_by.get(n.input[1]))
-        if x is not None and w is not None and x.op_type == "DequantizeLinear" and \
-                w.op_type == "DequantizeLinear" and w.input[0] in int8_inits:
-            q_convs += 1
-    return {"convs": convs, "int8_convs": q_convs,
-            "quantize_nodes": sum(n.op_type == "QuantizeLinear" for n in model.graph.node),
-            "dequantize_nodes": sum(n.op_type == "DequantizeLinear" for n in model.graph.node),
-            "int8_initializers": len(int8_inits)}
 
 
 def output_tail(model: onnx.ModelProto) -> list[str]:

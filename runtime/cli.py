@@ -196,6 +196,34 @@ def _run_pick(a: argparse.Namespace) -> int:
     return 0
 
 
+def _add_int8_probe(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--channels", type=int, default=64, metavar="C")
+    p.add_argument("--kernel", type=int, default=3, metavar="K")
+    p.add_argument("--size", default="320x180", metavar="WxH", help="activation size (default: "
+                   "640x360 at half resolution, where the students' bodies run)")
+    p.add_argument("--layers", type=int, default=4, metavar="N")
+    p.add_argument("--threads", type=int, default=0, metavar="N", help="0: one per core")
+    p.add_argument("--types", default="auto", help="auto (from this CPU), u8s8, u8s8-reduced, s8s8")
+
+
+def _run_int8_probe(a: argparse.Namespace) -> int:
+    from limner.bench.int8_probe import ProbeSpec, probe
+    from limner.bench.config import parse_resolution
+
+    w, h = parse_resolution(a.size)
+    spec = ProbeSpec(channels=a.channels, kernel=a.kernel, height=h, width=w, layers=a.layers,
+                     threads=a.threads, types=a.types)
+    r = probe(spec, progress=lambda i, n: print(f"\rround {i}/{n}", end="", file=sys.stderr, flush=True))
+    print(file=sys.stderr)
+    print(r.summary())
+    print(f"{r.fused_int8_convs}/{spec.layers} convs run as int8 kernels (QLinearConv); int8 output differs from fp32 by "
+          f"{r.rel_rms_error:.1%} RMS")
+    if r.ratio < 1.15:
+        print("int8 candidates are unlikely to run faster than their fp32 parents on this CPU; "
+              "consider [int8] enabled = false in the compress recipe.")
+    return 0
+
+
 Sub = tuple[str, Callable[[argparse.ArgumentParser], None], Callable[[argparse.Namespace], int] | None]
 SUBCOMMANDS: list[Sub] = [
     ("train", _add_train, _run_train),
@@ -204,6 +232,7 @@ SUBCOMMANDS: list[Sub] = [
     ("capture", _add_capture, _run_capture),
     ("bench", _add_bench, _run_bench),
     ("pick", _add_pick, _run_pick),
+    ("int8-probe", _add_int8_probe, _run_int8_probe),
     ("live", _add_live, _run_live),
 ]
 HELP = {
@@ -213,6 +242,7 @@ HELP = {
     "capture": "record venue frames for distillation and calibration",
     "bench": "measure fps and quality loss of models on this device",
     "pick": "choose the fastest model that meets quality thresholds",
+    "int8-probe": "time fp32 against int8 convolutions: does int8 pay on this CPU?",
     "live": "stylise a camera, video or the demo clip in real time",
 }
 
@@ -259,8 +289,9 @@ def main(argv: list[str] | None = None) -> int:
         return run(a)
     except ModuleNotFoundError as e:
         if e.name in ("torch", "onnx"):
+            alone = " (or only it: pip install onnx)" if e.name == "onnx" else ""
             print(f"limner {a.command}: needs {e.name}; install the compress extra: "
-                  "pip install 'limner[compress]'", file=sys.stderr)
+                  f"pip install 'limner[compress]'{alone}", file=sys.stderr)
             return 2
         raise
     except Exception as e:

@@ -167,6 +167,10 @@ def test_tiny_recipe_end_to_end(tiny_run):
     ratio = 1 - onnx_conv_weights(run / "a-p30.onnx") / onnx_conv_weights(run / "a.onnx")
     assert abs(ratio - 0.3) <= 0.05
     assert (run / "recipe.toml").exists() and (run / "compress.log").exists()
+    # the int8 stage first timed int8 against fp32 convs on this CPU, and says so
+    probe = man["int8_probe"]
+    assert probe["fp32_ms"] > 0 and probe["int8_ms"] > 0 and probe["types"] in ("u8s8", "u8s8-reduced", "s8s8")
+    assert "int8 probe:" in (run / "compress.log").read_text()
     splits = man["splits"]
     assert not set(splits["distillation"]["sha256"]) & set(splits["calibration"]["sha256"])
 
