@@ -14,6 +14,7 @@ import tempfile
 import time
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Callable
 
 import numpy as np
 
@@ -98,7 +99,7 @@ def conv_chain(spec: ProbeSpec, seed: int = 0):
     return helper.make_model(graph, opset_imports=[helper.make_opsetid("", 17)])
 
 
-def _median_ms(session, x: np.ndarray, runs: int) -> float:
+def _median_ms(session: ort.InferenceSession, x: np.ndarray, runs: int) -> float:
     times = []
     for _ in range(runs):
         t0 = time.perf_counter()
@@ -107,7 +108,8 @@ def _median_ms(session, x: np.ndarray, runs: int) -> float:
     return 1000 * statistics.median(times)
 
 
-def probe(spec: ProbeSpec = ProbeSpec(), progress=None) -> ProbeResult:
+def probe(spec: ProbeSpec = ProbeSpec(),
+          progress: Callable[[int, int], None] | None = None) -> ProbeResult:
     import onnx
     from onnxruntime.quantization import (CalibrationDataReader, QuantFormat, quant_pre_process,
                                           quantize_static)

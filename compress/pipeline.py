@@ -10,6 +10,7 @@ import json
 import time
 from dataclasses import asdict, replace
 from pathlib import Path
+from typing import Callable
 
 import numpy as np
 import torch
@@ -23,6 +24,7 @@ from .checkpoint import atomic_write_bytes
 from .content import ContentItem, ContentSet, load_content
 from .distill import build_cache, distill
 from .export import export, export_model
+from .layers import Residual
 from .lossnet import build_loss_net
 from .macs import count_macs, count_params
 from .prune import conv_weight_count, prune
@@ -89,24 +91,38 @@ def _init_from(path: str, fresh: torch.nn.Module, name: str) -> torch.nn.Module:
     """Start a student from a checkpoint (e.g. one distilled with other targets). The
     architecture must be the one the recipe's knobs build, except that a student with
     frame context may start from the same student without it (the context block starts
-    as the identity), and a student may start from one at another `downscale`: the body
+    as the identity), a student may start from one at another `downscale`: the body
     is the same, and the first and last convs, whose channel counts follow the
-    downscale, keep their fresh initialisation."""
+    downscale, keep their fresh initialisation; and a student may start from one with
+    fewer residual blocks of the same widths: the extra blocks come last and start as
+    the identity (their last conv zero), so the deeper student starts as the shallower
+    one and training only adds to it."""
     try:
         old = ckptmod.load(Path(path)).model()
     except ckptmod.CheckpointError as e:
         raise CompressError(f"student {name}: init: {e}") from None
     def shape(args: dict) -> dict:
-        return {k: v for k, v in args.items() if k not in ("knobs", "context", "downscale")}
+        return {k: v for k, v in args.items() if k not in ("knobs", "context", "downscale", "hidden")}
+    old_hidden, new_hidden = list(old.model_args["hidden"]), list(fresh.model_args["hidden"])
     if shape(old.model_args) != shape(fresh.model_args) or \
+            new_hidden[:len(old_hidden)] != old_hidden or \
             old.model_args.get("context", 0) not in (0, fresh.model_args.get("context", 0)):
         raise CompressError(f"student {name}: init={path} holds a different architecture "
                             f"({old.model_args.get('knobs')}) than the recipe's knobs")
     # the context block shifts the indices of the layers after it: match tensors in order
     film = (f"net.{fresh.context_at}." if getattr(fresh, "context_at", -1) >= 0
             and not old.model_args.get("context") else None)
+    # extra residual blocks (the last ones) keep their initialisation, made the identity
+    blocks = [i for i, m in enumerate(fresh.net) if isinstance(m, Residual)]
+    extra = blocks[len(old_hidden):]
+    for i in extra:
+        last = [m for m in fresh.net[i].body if isinstance(m, torch.nn.Conv2d)][-1]
+        with torch.no_grad():
+            last.weight.zero_()
+            last.bias.zero_()
+    skip = tuple(f"net.{i}." for i in extra) + ((film,) if film else ())
     fresh_sd = fresh.state_dict()
-    targets = [k for k in fresh_sd if not (film and k.startswith(film))]
+    targets = [k for k in fresh_sd if not k.startswith(skip)]
     old_sd = old.state_dict()
     if len(targets) != len(old_sd):
         raise CompressError(f"student {name}: init={path}: weights do not fit the recipe's knobs")
@@ -124,7 +140,7 @@ def _init_from(path: str, fresh: torch.nn.Module, name: str) -> torch.nn.Module:
     return fresh.train()
 
 
-def _int8_probe(types: str, log) -> dict:
+def _int8_probe(types: str, log: Callable[[str], None]) -> dict:
     """A short fp32-against-int8 conv timing on this CPU (bench/int8_probe.py): says up front
     when int8 candidates cannot be expected to run faster than their parents here."""
     from limner.bench.int8_probe import ProbeSpec, probe

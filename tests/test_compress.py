@@ -12,7 +12,7 @@ import pytest
 import torch
 
 from limner.bench.metrics import ms_ssim
-from limner.compress.layers import FrameFiLM
+from limner.compress.layers import FrameFiLM, Residual
 from limner.compress.prune import _spaces, conv_weight_count, prune, prune_to
 from limner.compress.registry import build
 from limner.compress.students import PRESETS
@@ -238,6 +238,18 @@ def test_student_init_checkpoint_must_match_knobs(tmp_path):
     keys = list(moved)
     assert torch.equal(moved[keys[0]], first_before)          # first conv: fresh
     assert all(torch.equal(moved[k], old_sd[k]) for k in keys[2:-2])  # body: carried over
+    # a deeper student of the same widths starts as the shallower one: the extra blocks
+    # start as the identity (exact: the residual add of a zero branch, Johnson et al.
+    # 2016's blocks), and their first convs keep a random start so training can use them
+    deep = _init_from(str(tmp_path / "tiny.pt"), build("student", **knobs | {"blocks": knobs["blocks"] + 2}),
+                      "tiny-deep").eval()
+    with torch.no_grad():
+        assert torch.equal(deep(x), net(x))
+    assert len(deep.state_dict()) == len(old_sd) + 8
+    extra_first = [m for m in deep.net if isinstance(m, Residual)][-1].body[0].weight
+    assert extra_first.abs().sum() > 0
+    with pytest.raises(CompressError, match="different architecture"):  # fewer blocks: no
+        _init_from(str(tmp_path / "tiny.pt"), build("student", **knobs | {"blocks": 0}), "tiny-0")
     with pytest.raises(CompressError, match="different architecture"):
         _init_from(str(tmp_path / "tiny.pt"), build("student", **asdict(PRESETS["s-dw"])), "dw")
     with pytest.raises(CompressError, match="no such checkpoint"):
