@@ -8,7 +8,9 @@ import matplotlib
 matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 from matplotlib.text import Text  # noqa: E402
+from matplotlib.transforms import Bbox  # noqa: E402
 
+MARKER_PT = 6.8  # marker diameter in points (scatter size is its square)
 COLOURS = {"fp32": "#1f77b4", "int8": "#d62728"}
 LABEL = {"ms_ssim": "MS-SSIM to the teacher (higher is better)",
          "ssim": "SSIM to the teacher (higher is better)",
@@ -27,14 +29,22 @@ def frontier(points: list[tuple[float, float]], higher_better: bool) -> list[int
     return keep
 
 
-def place_labels(fig, ax, pts: list[tuple[float, float]], names: list[str]) -> list:
+def _marker_boxes(fig, ax, pts: list[tuple[float, float]], marker_pt: float) -> list:
+    r = marker_pt / 2 * fig.dpi / 72
+    return [Bbox.from_extents(x - r, y - r, x + r, y + r) for x, y in ax.transData.transform(pts)]
+
+
+def place_labels(fig, ax, pts: list[tuple[float, float]], names: list[str],
+                 marker_pt: float = 0.0) -> list:
     """Label each point beside it; where a label would overlap one already placed, try
     places above and below it (then on its left), with a thin leader line once it is
     away from its point. Models of similar speed and quality sit in clusters, where
-    labels at one fixed offset print over each other. Returns the labels' bounding boxes
-    in display coordinates."""
+    labels at one fixed offset print over each other. Markers of diameter `marker_pt`
+    (points) are kept clear as well, and labels stay inside the figure. Call it once the axes are final (scales, limits,
+    layout): the boxes are measured in display coordinates. Returns the labels' boxes."""
     fig.canvas.draw()  # fixes the axes limits and transforms the boxes are measured in
     renderer = fig.canvas.get_renderer()
+    markers = _marker_boxes(fig, ax, pts, marker_pt)
     steps = [0.0] + [d * k for k in range(1, 12) for d in (-1.0, 1.0)]
     tries = [(6.0, 4.0 + 11.0 * k) for k in steps] + [(-6.0, 4.0 + 11.0 * k) for k in steps]
     placed = []
@@ -47,14 +57,18 @@ def place_labels(fig, ax, pts: list[tuple[float, float]], names: list[str]) -> l
                             if far else None)
             t.update_positions(renderer)
             box = Text.get_window_extent(t, renderer)  # the text alone, not its leader line
-            if not any(box.overlaps(b) for b in placed) or n == len(tries) - 1:
+            inside = fig.bbox.x0 <= box.x0 and box.x1 <= fig.bbox.x1 and \
+                fig.bbox.y0 <= box.y0 and box.y1 <= fig.bbox.y1
+            if (inside and not any(box.overlaps(b) for b in placed + markers)) or n == len(tries) - 1:
                 break
             t.remove()
         placed.append(box)
     return placed
 
 
-def pareto_plot(rep: dict, path: Path) -> None:
+def pareto_plot(rep: dict, path: Path) -> tuple[list, list]:
+    """Writes the plot; returns the label boxes and the marker boxes as saved (display
+    coordinates), for checking that no label covers another label or a marker."""
     from .report import quality_value, speed_at
 
     cfg = rep["config"]
@@ -72,12 +86,11 @@ def pareto_plot(rep: dict, path: Path) -> None:
         xs = [p[0] for p, r in zip(pts, rows) if r["precision"] == prec]
         ys = [p[1] for p, r in zip(pts, rows) if r["precision"] == prec]
         if xs:
-            ax.scatter(xs, ys, c=col, s=46, label=prec, zorder=3)
+            ax.scatter(xs, ys, c=col, s=MARKER_PT ** 2, label=prec, zorder=3)
     front = sorted((pts[i] for i in frontier(pts, hib)), key=lambda p: p[0])
     if len(front) > 1:
         ax.step([p[0] for p in front], [p[1] for p in front], where="post" if not hib else "pre",
                 color="#555555", lw=1.2, ls="-", zorder=2, label="Pareto frontier")
-    place_labels(fig, ax, pts, [r["name"] + (" (teacher)" if r["is_teacher"] else "") for r in rows])
     floor = rep["floor"][axis]["mean"]
     ax.axvline(floor, color="#2ca02c", ls=":", lw=1.3, label=f"teacher's noise floor ({floor:.3g})")
     ax.axhline(cfg["min_fps"], color="#ff7f0e", ls="--", lw=1.1, label=f"min fps {cfg['min_fps']:g}")
@@ -93,5 +106,12 @@ def pareto_plot(rep: dict, path: Path) -> None:
     ax.grid(True, which="both", alpha=0.3)
     ax.legend(fontsize=8, loc="best")
     fig.tight_layout()
+    # last: the labels are placed in the final layout (log scale, margins)
+    place_labels(fig, ax, pts, [r["name"] + (" (teacher)" if r["is_teacher"] and r["name"] != "teacher" else "") for r in rows],
+                 marker_pt=MARKER_PT)
     fig.savefig(path)
+    renderer = fig.canvas.get_renderer()
+    labels = [Text.get_window_extent(t, renderer) for t in ax.texts]
+    markers = _marker_boxes(fig, ax, pts, MARKER_PT)
     plt.close(fig)
+    return labels, markers

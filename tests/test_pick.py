@@ -99,7 +99,42 @@ def test_plot_labels_in_a_cluster_do_not_overlap():
     pts = [(0.74 + 0.001 * k, 18.0 + 0.2 * k) for k in range(6)] + [(0.62, 47.0), (1.0, 0.7)]
     ax.scatter(*zip(*pts))
     ax.set_yscale("log")
-    boxes = place_labels(fig, ax, pts, [f"half-ctx-variant-{k}" for k in range(len(pts))])
+    ax.set_xlim(0.6, 1.0)
+    boxes = place_labels(fig, ax, pts, [f"half-ctx-variant-{k}" for k in range(len(pts))], marker_pt=6.8)
+    r = 3.4 * fig.dpi / 72
+    markers = [(x - r, y - r, x + r, y + r) for x, y in ax.transData.transform(pts)]
     plt.close(fig)
     assert len(boxes) == len(pts)
     assert not any(a.overlaps(b) for i, a in enumerate(boxes) for b in boxes[i + 1:])
+    # no label covers a marker, and none runs off the figure (the point at x = 1.0 sits on
+    # the right edge of the axes: its label must go to the left)
+    assert not any(b.x0 < m[2] and m[0] < b.x1 and b.y0 < m[3] and m[1] < b.y1
+                   for b in boxes for m in markers)
+    assert all(0 <= b.x0 and b.x1 <= 8 * 110 for b in boxes)
+
+
+def test_pareto_plot_labels_clear_in_the_saved_figure(tmp_path):
+    """The labels are placed in the figure's final layout (log scale, margins, legend), so
+    in the saved figure no label covers another or a marker. A made-up ladder of 14
+    models, clustered the way a real one is (layout check only)."""
+    from limner.bench.plots import pareto_plot
+
+    def model(name, q, fps, prec="fp32", teacher=False):
+        return {"name": name, "precision": prec, "is_teacher": teacher,
+                "speed": [{"resolution": "640x360", "threads": 2, "fps": fps}],
+                "fidelity": None if teacher else {"ms_ssim": {"mean": q}}}
+
+    models = [model("teacher", 1.0, 0.85, teacher=True)]
+    for k in range(6):
+        models.append(model(f"half-ctx-{k}", 0.740 + 0.002 * k, 18.0 + 0.4 * k))
+        models.append(model(f"half-ctx-{k}-int8", 0.738 + 0.002 * k, 16.5 + 0.4 * k, "int8"))
+    models.append(model("tiny", 0.67, 49.0))
+    rep = {"config": {"quality_axis": "ms_ssim", "plot_resolution": "640x360", "min_fps": 30,
+                      "min_ms_ssim": 0.8},
+           "resolutions": ["640x360"], "models": models, "floor": {"ms_ssim": {"mean": 0.978}},
+           "machine": {"cpu": "test", "cores": 2, "onnxruntime": "x"}}
+    labels, markers = pareto_plot(rep, tmp_path / "pareto.png")
+    assert len(labels) == len(markers) == len(models)
+    assert not any(a.overlaps(b) for i, a in enumerate(labels) for b in labels[i + 1:])
+    assert not any(a.overlaps(m) for a in labels for m in markers)
+    assert (tmp_path / "pareto.png").stat().st_size > 10_000
