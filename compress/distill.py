@@ -149,18 +149,21 @@ class DistillLoss:
 
 
 def distill(net: nn.Module, cache: dict[str, np.ndarray], recipe: Recipe, steps: int, lr: float,
-            lossnet: nn.Module, workdir: Path, desc: str, meta: dict) -> tuple[nn.Module, dict]:
-    """Train `net` on the cached pairs; resumable from workdir/checkpoint.pt."""
+            lossnet: nn.Module, workdir: Path, desc: str, meta: dict,
+            device: torch.device = torch.device("cpu")) -> tuple[nn.Module, dict]:
+    """Train `net` on the cached pairs on `device`; resumable from workdir/checkpoint.pt.
+    Returns the trained net on the CPU (export reads its weights there)."""
     workdir = Path(workdir)
     ckpt_path = workdir / "checkpoint.pt"
-    loss = DistillLoss(recipe.loss, lossnet)
+    loss = DistillLoss(recipe.loss, lossnet.to(device))
+    net = net.to(device)
     opt = torch.optim.Adam(net.parameters(), lr=lr)
     step, seconds_before = 0, 0.0
     if ckpt_path.exists():
         ck = ckptmod.load(ckpt_path)
-        net = ck.model().train()
+        net = ck.model().train().to(device)
         opt = torch.optim.Adam(net.parameters(), lr=lr)
-        opt.load_state_dict(ck.train_state["optimizer"])
+        opt.load_state_dict(ck.train_state["optimizer"])  # moves its state to the params' device
         loss.scale = dict(ck.train_state["loss_scale"])
         step = int(ck.train_state["step"])
         seconds_before = float(ck.train_state.get("seconds", 0.0))
@@ -193,9 +196,10 @@ def distill(net: nn.Module, cache: dict[str, np.ndarray], recipe: Recipe, steps:
                 idx = rng.integers(0, n, recipe.batch)
             x, t = _t(cache["inputs"][idx]), _t(cache["targets"][idx])
             noise = torch.from_numpy(rng.normal(0, recipe.loss.noise_sigma / 255.0, x.shape).astype(np.float32))
-            frame = _t(cache["frames"][cache["frame_index"][idx]]) if with_frames else None
+            x, t, noise = x.to(device), t.to(device), noise.to(device)
+            frame = _t(cache["frames"][cache["frame_index"][idx]]).to(device) if with_frames else None
             if norm_frames:
-                stats = frame_norm.frame_stats(net, _t(cache["frames"][f:f + 1]))
+                stats = frame_norm.frame_stats(net, _t(cache["frames"][f:f + 1]).to(device))
                 with frame_norm.use(net, stats):
                     total, logs = loss.total(loss.terms(net, x, t, noise))
             else:
@@ -212,7 +216,11 @@ def distill(net: nn.Module, cache: dict[str, np.ndarray], recipe: Recipe, steps:
     except KeyboardInterrupt:
         save(step)
         bar.close()
+        net.cpu()
+        lossnet.cpu()
         raise
     bar.close()
-    net.eval()
-    return net, {"steps": steps, "seconds": seconds_before + time.monotonic() - t0, "final_loss": logs}
+    net.cpu().eval()
+    lossnet.cpu()
+    return net, {"steps": steps, "seconds": seconds_before + time.monotonic() - t0, "final_loss": logs,
+                 "device": str(device)}

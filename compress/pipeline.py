@@ -140,6 +140,19 @@ def _init_from(path: str, fresh: torch.nn.Module, name: str) -> torch.nn.Module:
     return fresh.train()
 
 
+def train_device(name: str) -> torch.device:
+    """The recipe's `device`: "auto" takes CUDA when torch sees it, else the CPU."""
+    if name == "auto":
+        return torch.device("cuda" if torch.cuda.is_available() else "cpu")
+    if name.startswith("cuda"):
+        n = torch.cuda.device_count() if torch.cuda.is_available() else 0
+        index = int(name.split(":")[1]) if ":" in name else 0
+        if index >= n:
+            raise CompressError(f"device={name!r}: torch {torch.__version__} sees {n} CUDA device(s) here; "
+                                "use device = \"cpu\" or \"auto\"")
+    return torch.device(name)
+
+
 def _int8_probe(types: str, log: Callable[[str], None]) -> dict:
     """A short fp32-against-int8 conv timing on this CPU (bench/int8_probe.py): says up front
     when int8 candidates cannot be expected to run faster than their parents here."""
@@ -162,6 +175,7 @@ def compress(teacher: str, content: list[str], recipe: Recipe, out: Path) -> dic
     log = _Log(out / "compress.log")
     if recipe.threads:
         torch.set_num_threads(recipe.threads)
+    device = train_device(recipe.device)
     (out / "recipe.toml").write_text(cfgmod.dumps_toml(recipe))
     manifest_path = out / "manifest.json"
     manifest = json.loads(manifest_path.read_text()) if manifest_path.exists() else {"candidates": {}}
@@ -226,7 +240,7 @@ def compress(teacher: str, content: list[str], recipe: Recipe, out: Path) -> dic
             entry["init_sha256"] = file_sha256(Path(spec.init))
         r = replace(recipe, loss=spec.losses(recipe.loss))
         net, info = distill(net, cache, r, spec.steps, spec.lr, lossnet, out / "work" / spec.name,
-                            f"distill {spec.name}", {"name": spec.name})
+                            f"distill {spec.name}", {"name": spec.name}, device)
         path = export_model(net, base_meta(spec.name, "student", teacher_sha, entry, r.loss),
                             out / f"{spec.name}.onnx")
         record(spec.name, path, net, entry, {"distill": info, "wall_s": time.monotonic() - t0})
@@ -254,7 +268,7 @@ def compress(teacher: str, content: list[str], recipe: Recipe, out: Path) -> dic
         entry = {**asdict(spec), "role": "pruned", "parent": parent["sha256"], "parent_name": spec.parent}
         r = replace(recipe, loss=spec.losses(recipe.loss))
         net, info = distill(net, cache, r, spec.steps, spec.lr, lossnet, work, f"recover {spec.name}",
-                            {"name": spec.name})
+                            {"name": spec.name}, device)
         path = export_model(net, base_meta(spec.name, "pruned", parent["sha256"], entry, r.loss),
                             out / f"{spec.name}.onnx")
         record(spec.name, path, net, entry, {"distill": info, "before_pruning": before,

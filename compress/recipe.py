@@ -2,6 +2,7 @@
 int8 and the distillation losses."""
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass, field, fields, replace
 
 from .students import StudentKnobs
@@ -122,6 +123,7 @@ class Recipe:
     crops_per_frame: int = 8
     seed: int = 0
     threads: int = 0
+    device: str = "cpu"            # where distillation trains: cpu, cuda (or cuda:N), auto
     checkpoint_every: int = 100
     calibration_fraction: float = 0.15   # of content sources (split by source image)
     held_out_fraction: float = 0.15
@@ -142,6 +144,8 @@ class Recipe:
                 raise ValueError(f"target_frame={self.target_frame!r}: smaller than crop={self.crop}")
         if self.crops_per_frame < 1:
             raise ValueError(f"crops_per_frame={self.crops_per_frame}: must be at least 1")
+        if not re.fullmatch(r"cpu|auto|cuda(:\d+)?", self.device):
+            raise ValueError(f"device={self.device!r}: one of cpu, cuda, cuda:N, auto")
         names = [s.name for s in self.student] + [p.name for p in self.prune]
         dup = {n for n in names if names.count(n) > 1}
         if dup:

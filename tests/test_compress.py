@@ -156,6 +156,7 @@ def test_tiny_recipe_end_to_end(tiny_run):
     losses = {n: load_model(run / f"{n}.onnx", threads=1).meta.recipe["distill_loss"] for n in ("a", "b")}
     assert losses["b"]["gram"] == 0.0 and losses["a"]["gram"] == 1.0
     assert losses["a"]["lowpass_l1"] == losses["b"]["lowpass_l1"] == 1.0
+    assert man["candidates"]["a"]["distill"]["device"] == "cpu"  # the recipe's default
     p = man["candidates"]["a-p30"]
     assert p["role"] == "pruned" and p["parent"] == man["candidates"]["a"]["sha256"]
     assert abs(1 - p["conv_weights"] / p["before_pruning"]["conv_weights"] - 0.3) <= 0.05
@@ -396,6 +397,7 @@ def test_pruned_teacher_rung_end_to_end(teacher_onnx, tmp_path):
     ('[[prune]]\nname = "teacher"\nparent = "teacher"\n', "reserved"),
     ('[[prune]]\nname = "p"\nparent = "nobody"\n', "neither a student"),
     ('[[prune]]\nname = "p"\nparent = "teacher"\nsteps = 0\n', "steps=0"),
+    ('device = "gpu"\n', "device='gpu'"),
 ])
 def test_prune_entry_errors_name_the_value(tmp_path, body, message):
     from limner.compress.recipe import Recipe
@@ -405,3 +407,15 @@ def test_prune_entry_errors_name_the_value(tmp_path, body, message):
     bad.write_text(body)
     with pytest.raises(cfgmod.ConfigError, match=message):
         cfgmod.load(Recipe, bad)
+
+
+def test_training_device_is_checked_before_any_work():
+    """`device = "cuda"` on a machine where torch sees no CUDA device is refused by name;
+    `auto` falls back to the CPU (torch.cuda.is_available, torch's own check)."""
+    from limner.compress.pipeline import CompressError, train_device
+
+    assert train_device("cpu") == torch.device("cpu")
+    n = torch.cuda.device_count() if torch.cuda.is_available() else 0
+    assert train_device("auto").type == ("cuda" if n else "cpu")
+    with pytest.raises(CompressError, match=f"device='cuda:{n}'"):
+        train_device(f"cuda:{n}")
