@@ -40,8 +40,9 @@ def place_labels(fig, ax, pts: list[tuple[float, float]], names: list[str],
     places above and below it (then on its left), with a thin leader line once it is
     away from its point. Models of similar speed and quality sit in clusters, where
     labels at one fixed offset print over each other. Markers of diameter `marker_pt`
-    (points) are kept clear as well, and labels stay inside the figure. Call it once the axes are final (scales, limits,
-    layout): the boxes are measured in display coordinates. Returns the labels' boxes."""
+    (points) are kept clear as well, and labels stay inside the figure. Call it once the
+    axes are final (scales, limits, layout): the boxes are measured in display
+    coordinates. Returns the labels' boxes."""
     fig.canvas.draw()  # fixes the axes limits and transforms the boxes are measured in
     renderer = fig.canvas.get_renderer()
     markers = _marker_boxes(fig, ax, pts, marker_pt)
@@ -107,8 +108,8 @@ def pareto_plot(rep: dict, path: Path) -> tuple[list, list]:
     ax.legend(fontsize=8, loc="best")
     fig.tight_layout()
     # last: the labels are placed in the final layout (log scale, margins)
-    place_labels(fig, ax, pts, [r["name"] + (" (teacher)" if r["is_teacher"] and r["name"] != "teacher" else "") for r in rows],
-                 marker_pt=MARKER_PT)
+    names = [r["name"] + (" (teacher)" if r["is_teacher"] and r["name"] != "teacher" else "") for r in rows]
+    place_labels(fig, ax, pts, names, marker_pt=MARKER_PT)
     fig.savefig(path)
     renderer = fig.canvas.get_renderer()
     labels = [Text.get_window_extent(t, renderer) for t in ax.texts]
