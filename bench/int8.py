@@ -3,8 +3,12 @@ quantized model file really holds."""
 from __future__ import annotations
 
 import platform
+from collections.abc import Sequence
 from dataclasses import dataclass
+from pathlib import Path
 from typing import TYPE_CHECKING
+
+import numpy as np
 
 from .machine import cpu_features
 
@@ -67,3 +71,40 @@ def count_qdq(model: onnx.ModelProto) -> dict[str, int]:
             "quantize_nodes": sum(n.op_type == "QuantizeLinear" for n in model.graph.node),
             "dequantize_nodes": sum(n.op_type == "DequantizeLinear" for n in model.graph.node),
             "int8_initializers": len(int8_inits)}
+
+
+CALIBRATIONS = ("minmax", "entropy", "percentile")
+
+# Ops that run in int8 between QuantizeLinear / DequantizeLinear (the rest stays float).
+QDQ_OPS = ("Conv", "Relu", "Add", "Resize", "DepthToSpace", "SpaceToDepth")
+
+
+def quantize_qdq(src: Path, out: Path, batches: list[dict[str, np.ndarray]], types: IntTypes,
+                 calibration: str = "minmax", exclude: Sequence[str] = (),
+                 cache: Path | None = None) -> None:
+    """The one static quantization Limner makes (compress and int8-probe alike): QDQ
+    format, per-channel weights, `types`, calibrated on `batches` (input name -> array)
+    with MinMax, Entropy or Percentile; nodes in `exclude` stay in float."""
+    from onnxruntime.quantization import (CalibrationDataReader, CalibrationMethod, QuantFormat,
+                                          quantize_static)
+
+    class Batches(CalibrationDataReader):
+        def __init__(self) -> None:
+            self.i = 0
+
+        def get_next(self) -> dict | None:
+            if self.i >= len(batches):
+                return None
+            self.i += 1
+            return batches[self.i - 1]
+
+        def rewind(self) -> None:
+            self.i = 0
+
+    method = {"minmax": CalibrationMethod.MinMax, "entropy": CalibrationMethod.Entropy,
+              "percentile": CalibrationMethod.Percentile}[calibration]  # keys: CALIBRATIONS
+    quantize_static(str(src), str(out), Batches(), quant_format=QuantFormat.QDQ,
+                    op_types_to_quantize=list(QDQ_OPS), per_channel=True,
+                    reduce_range=types.reduce_range, activation_type=types.activation,
+                    weight_type=types.weight, nodes_to_exclude=list(exclude),
+                    calibrate_method=method, calibration_cache_path=str(cache) if cache else None)

@@ -1,5 +1,6 @@
-"""Does int8 pay on this CPU? A chain of conv + ReLU layers, fp32 and QDQ int8 (the
-types `limner compress` would choose here), timed interleaved in one process.
+"""Does int8 pay on this CPU? A chain of conv + ReLU layers, fp32 and QDQ int8 (quantized
+by the same function and with the types `limner compress` would use here), timed
+interleaved in one process.
 
 The ratio bounds what any int8 candidate can gain here: a whole model also has layers
 that stay in float and quantize/dequantize steps, so it rarely beats its convs alone.
@@ -22,7 +23,10 @@ import onnxruntime as ort
 
 from limner.runtime.session import make_session, session_options
 
-from .int8 import TYPES, count_qdq, detect_types
+from .int8 import TYPES, count_qdq, detect_types, quantize_qdq
+
+
+PAYS_AT = 1.15  # int8 / fp32 speed an int8 candidate should reach to be worth its quality cost
 
 
 @dataclass(frozen=True)
@@ -68,6 +72,14 @@ class ProbeResult:
         """fp32 time / int8 time: above 1 means int8 is faster."""
         return self.fp32_ms / self.int8_ms
 
+    def verdict(self) -> str | None:
+        """A warning when int8 convs are not clearly faster here (the issue's bar for an int8
+        candidate, 1.15x), else None."""
+        if self.ratio >= PAYS_AT:
+            return None
+        return ("int8 convolutions are not clearly faster than fp32 on this CPU: int8 candidates "
+                "will likely run no faster than their fp32 parents here")
+
     def summary(self) -> str:
         s = self.spec
         return (f"int8 probe: {s.layers} x conv {s.kernel}x{s.kernel} {s.channels}->{s.channels} at "
@@ -111,16 +123,7 @@ def _median_ms(session: ort.InferenceSession, x: np.ndarray, runs: int) -> float
 def probe(spec: ProbeSpec = ProbeSpec(),
           progress: Callable[[int, int], None] | None = None) -> ProbeResult:
     import onnx
-    from onnxruntime.quantization import (CalibrationDataReader, QuantFormat, quant_pre_process,
-                                          quantize_static)
-
-    class Inputs(CalibrationDataReader):
-        def __init__(self, xs: list[np.ndarray]) -> None:
-            self.xs = iter(xs)
-
-        def get_next(self) -> dict | None:
-            x = next(self.xs, None)
-            return None if x is None else {"x": x}
+    from onnxruntime.quantization import quant_pre_process
 
     label = detect_types() if spec.types == "auto" else spec.types
     types = TYPES[label]
@@ -133,9 +136,7 @@ def probe(spec: ProbeSpec = ProbeSpec(),
         fp32, pre, q = (Path(tmp) / n for n in ("fp32.onnx", "pre.onnx", "int8.onnx"))
         onnx.save(conv_chain(spec), str(fp32))
         quant_pre_process(str(fp32), str(pre))
-        quantize_static(str(pre), str(q), Inputs(calib), quant_format=QuantFormat.QDQ,
-                        per_channel=True, reduce_range=types.reduce_range,
-                        activation_type=types.activation, weight_type=types.weight)
+        quantize_qdq(pre, q, [{"x": c} for c in calib], types)
         counts = count_qdq(onnx.load(str(q)))
         threads = spec.threads or os.cpu_count() or 1
         sf = make_session(str(fp32), threads)

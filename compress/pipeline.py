@@ -160,10 +160,8 @@ def _int8_probe(types: str, log: Callable[[str], None]) -> dict:
 
     r = probe(ProbeSpec(channels=32, rounds=3, runs=3, types=types))
     log(r.summary())
-    if r.ratio < 1.15:
-        log("  int8 convolutions are not clearly faster than fp32 on this CPU: the int8 candidates "
-            "will likely run no faster than their parents here (they may on the target device: "
-            "run `limner int8-probe` there)")
+    if r.verdict():
+        log(f"  {r.verdict()} (they may be faster on the target device: run `limner int8-probe` there)")
     return {"types": r.types, "fp32_ms": r.fp32_ms, "int8_ms": r.int8_ms, "ratio": r.ratio,
             "spec": asdict(r.spec)}
 

@@ -16,34 +16,16 @@ from pathlib import Path
 import numpy as np
 import onnx
 from onnx import shape_inference
-from onnxruntime.quantization import (CalibrationDataReader, CalibrationMethod, QuantFormat,
-                                      quant_pre_process, quantize_static)
+from onnxruntime.quantization import quant_pre_process
 
-from limner.bench.int8 import TYPES, IntTypes, count_qdq, detect_types  # noqa: F401 (re-exported)
+from limner.bench.int8 import (TYPES, IntTypes, count_qdq, detect_types,  # noqa: F401 (re-exported)
+                               quantize_qdq)
 from limner.bench.metrics import ms_ssim
 from limner.runtime.metadata import PREFIX
 from limner.runtime.session import make_session
 
 from .export import save_onnx
 from .recipe import Int8Spec
-
-METHODS = {"minmax": CalibrationMethod.MinMax, "entropy": CalibrationMethod.Entropy,
-           "percentile": CalibrationMethod.Percentile}
-
-
-class _Frames(CalibrationDataReader):
-    def __init__(self, frames: list[np.ndarray], input_name: str) -> None:
-        self.frames, self.name, self.i = frames, input_name, 0
-
-    def get_next(self) -> dict | None:
-        if self.i >= len(self.frames):
-            return None
-        self.i += 1
-        return {self.name: self.frames[self.i - 1][None]}
-
-    def rewind(self) -> None:
-        self.i = 0
-
 
 def conv_macs(model: onnx.ModelProto, height: int, width: int) -> dict[str, int]:
     """Conv node name -> MACs at a fixed input size (shape inference on a pinned copy)."""
@@ -81,12 +63,7 @@ def output_tail(model: onnx.ModelProto) -> list[str]:
 
 def _quantize(pre: Path, out: Path, frames: list[np.ndarray], spec: Int8Spec, types: IntTypes,
               exclude: list[str], cache: Path) -> None:
-    quantize_static(str(pre), str(out), _Frames(frames, "image"), quant_format=QuantFormat.QDQ,
-                    op_types_to_quantize=["Conv", "Relu", "Add", "Resize", "DepthToSpace", "SpaceToDepth"],
-                    per_channel=True, reduce_range=types.reduce_range,
-                    activation_type=types.activation, weight_type=types.weight,
-                    nodes_to_exclude=list(exclude), calibrate_method=METHODS[spec.calibration],
-                    calibration_cache_path=str(cache))
+    quantize_qdq(pre, out, [{"image": f[None]} for f in frames], types, spec.calibration, exclude, cache)
 
 
 def _agreement(a_model: str | bytes, b_model: str | bytes, frames: list[np.ndarray]) -> float:

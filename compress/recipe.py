@@ -5,10 +5,12 @@ from __future__ import annotations
 import re
 from dataclasses import dataclass, field, fields, replace
 
+from limner.bench.int8 import CALIBRATIONS
+from limner.bench.int8 import TYPES
+
 from .students import StudentKnobs
 
-CALIBRATION_METHODS = ("minmax", "entropy", "percentile")
-INT_TYPES = ("auto", "u8s8", "u8s8-reduced", "s8s8")
+INT_TYPES = ("auto", *TYPES)
 
 
 @dataclass
@@ -106,8 +108,8 @@ class Int8Spec:
     min_gain: float = 0.002        # ... and only those whose fp32 restores at least this MS-SSIM
 
     def __post_init__(self) -> None:
-        if self.calibration not in CALIBRATION_METHODS:
-            raise ValueError(f"int8.calibration={self.calibration!r}: one of {', '.join(CALIBRATION_METHODS)}")
+        if self.calibration not in CALIBRATIONS:
+            raise ValueError(f"int8.calibration={self.calibration!r}: one of {', '.join(CALIBRATIONS)}")
         if self.types not in INT_TYPES:
             raise ValueError(f"int8.types={self.types!r}: one of {', '.join(INT_TYPES)}")
         if not 0 <= self.min_int8_mac_share <= 1:

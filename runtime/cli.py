@@ -216,11 +216,10 @@ def _run_int8_probe(a: argparse.Namespace) -> int:
     r = probe(spec, progress=lambda i, n: print(f"\rround {i}/{n}", end="", file=sys.stderr, flush=True))
     print(file=sys.stderr)
     print(r.summary())
-    print(f"{r.fused_int8_convs}/{spec.layers} convs run as int8 kernels (QLinearConv); int8 output differs from fp32 by "
-          f"{r.rel_rms_error:.1%} RMS")
-    if r.ratio < 1.15:
-        print("int8 candidates are unlikely to run faster than their fp32 parents on this CPU; "
-              "consider [int8] enabled = false in the compress recipe.")
+    print(f"{r.fused_int8_convs}/{spec.layers} convs run as int8 kernels (QLinearConv); "
+          f"int8 output differs from fp32 by {r.rel_rms_error:.1%} RMS")
+    if r.verdict():
+        print(f"{r.verdict()}; consider [int8] enabled = false in the compress recipe.")
     return 0
 
 
