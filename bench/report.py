@@ -47,6 +47,9 @@ def flat_rows(rep: dict) -> list[dict]:
             for k in ("ms_ssim", "ssim", "psnr", "delta_e"):
                 row[f"{k}_mean"] = round(f[k]["mean"], 4) if k in f else ""
                 row[f"{k}_worst"] = round(f[k]["worst"], 4) if k in f else ""
+            look = r.get("style") or {}
+            for k in ("style_share", "content_similarity"):
+                row[k] = round(look[k]["mean"], 4) if k in look else ""
             st = r["stability"]
             row["noise_ms_ssim"] = round(st["noise_ms_ssim"], 4)
             row["warp_error"] = round(st["warp_error"], 6) if "warp_error" in st else ""
@@ -58,8 +61,9 @@ def _md_table(rep: dict, resolution: str) -> list[str]:
     floor = rep["floor"]
     lines = [f"### {resolution}", "",
              "| model | precision | fps | x teacher | int8 x fp32 parent | p50 ms | p95 ms | MS-SSIM mean / worst "
-             "| SSIM mean | PSNR dB | S-CIELAB dE00 mean / worst | own noise MS-SSIM | warp error | RSS MB |",
-             "|---|---|---|---|---|---|---|---|---|---|---|---|---|---|"]
+             "| SSIM mean | PSNR dB | S-CIELAB dE00 mean / worst | style share | content sim. | own noise MS-SSIM "
+             "| warp error | RSS MB |",
+             "|---|---|---|---|---|---|---|---|---|---|---|---|---|---|---|---|"]
     for r in flat_rows(rep):
         if r["resolution"] != resolution:
             continue
@@ -69,12 +73,26 @@ def _md_table(rep: dict, resolution: str) -> list[str]:
         vp = "—" if vp == "" else (f"{vp} (slower)" if vp < 1 else str(vp))
         lines.append(f"| {r['name']} | {r['precision']} | {r['fps']:.1f} | {r['speedup']} | {vp} | {r['p50_ms']:.1f} "
                      f"| {r['p95_ms']:.1f} | {q('ms_ssim')} | {q('ssim', False)} | {q('psnr', False)} "
-                     f"| {q('delta_e')} | {r['noise_ms_ssim']:.3f} | {r['warp_error']} | {r['peak_rss_mb']:.0f} |")
+                     f"| {q('delta_e')} | {_num(r['style_share'])} | {_num(r['content_similarity'])} "
+                     f"| {r['noise_ms_ssim']:.3f} | {r['warp_error']} | {r['peak_rss_mb']:.0f} |")
     lines += ["", f"Teacher's own noise floor (its output for noisy input, sigma {rep['noise_sigma']}, "
               f"against its clean output): MS-SSIM {floor['ms_ssim']['mean']:.3f}, SSIM "
               f"{floor['ssim']['mean']:.3f}, PSNR {floor['psnr']['mean']:.1f} dB, S-CIELAB dE00 "
               f"{floor['delta_e']['mean']:.2f}. No student can be closer to the teacher than this.", ""]
     return lines
+
+
+def _num(v) -> str:
+    return "—" if v == "" else f"{v:.3f}"
+
+
+def _style_line(rep: dict) -> str:
+    sf = rep.get("style_features") or {}
+    if "source" not in sf:
+        return f"- style share and content similarity: not measured ({sf.get('unavailable', 'no scorer')})"
+    return (f"- style share (Gram distance to the style image `{sf['style']}` at relu1_2..relu4_3, as a share "
+            f"of the unstylised photo's; 0 is the style exactly, 1 the photo) and content similarity "
+            f"(relu4_3 cosine to the photo), features of the trained loss network `{sf['source'][:28]}...`")
 
 
 def markdown(rep: dict) -> str:
@@ -89,7 +107,8 @@ def markdown(rep: dict) -> str:
              f"{rep['config']['display_width_m']} m wide at {rep['config']['viewing_distance_m']} m "
              f"({rep['pixels_per_degree']:.1f} px/degree); warping error on {rep['clip']}",
              f"- speed: {rep['config']['warmup']} warm-up + {rep['config']['frames']} timed frames, "
-             "uint8 in and out, live-runtime session settings, one subprocess per model", "",
+             "uint8 in and out, live-runtime session settings, one subprocess per model",
+             _style_line(rep), "",
              "![Pareto plot](pareto.png)", "", "![Samples](samples.png)", ""]
     for res in rep["resolutions"]:
         lines += _md_table(rep, res)

@@ -15,6 +15,7 @@ from .config import BenchConfig, parse_resolution
 from .prepare import add_noise, cover_crop, fit_multiple, lcm_all, list_images, read_image
 from .quality import compare_sets, stability
 from .speed import measure_in_subprocess
+from .style_features import open_for_style, score_set
 
 SCHEMA_VERSION = 1
 
@@ -78,7 +79,9 @@ def _run_all(model: Model, frames: list[np.ndarray]) -> list[np.ndarray]:
 
 
 def bench(models: list[str], teacher: str, content: list[str], out: Path,
-          cfg: BenchConfig, clip: str | None = None) -> dict:
+          cfg: BenchConfig, clip: str | None = None, style: str | None = None) -> dict:
+    """`style`: the style image (bundled name or path) for the style scores; default: the
+    teacher's style name when it is a bundled style."""
     out = Path(out)
     paths = list_models(models)
     teacher_path = Path(teacher)
@@ -95,6 +98,8 @@ def bench(models: list[str], teacher: str, content: list[str], out: Path,
     images = [cover_crop(read_image(p), qw, qh) for p in held_out]
     noisy = [add_noise(im, cfg.noise_sigma, cfg.noise_seed + i) for i, im in enumerate(images)]
     clip_in, clip_name = _clip_frames(clip, cfg.clip_frames, qw, qh)
+    scorer, no_style = open_for_style(style or loaded[0].meta.style)
+    photo_feats = [scorer.features(im) for im in images] if scorer else []
 
     steps = len(loaded) * 2
     bar = Progress(steps, "bench")
@@ -111,6 +116,7 @@ def bench(models: list[str], teacher: str, content: list[str], out: Path,
             floor = compare_sets(noisy_out, t_clean, ppd)
         fidelity = None if m is teacher_m else compare_sets(clean, t_clean, ppd)
         stab = stability(clean, noisy_out, clip_in, clip_out)
+        look = score_set(scorer, clean, images, photo_feats) if scorer else None
         bar.update(1, f"{m.path.name}: speed")
         speed = measure_in_subprocess(str(m.path), [str(p) for p in held_out], sizes, cfg.threads,
                                       cfg.warmup, cfg.frames)
@@ -121,7 +127,7 @@ def bench(models: list[str], teacher: str, content: list[str], out: Path,
                      "size_multiple": m.size_multiple, "arch": m.meta.arch,
                      "calibration": m.meta.calibration, "is_teacher": m is teacher_m,
                      "peak_rss_mb": speed["peak_rss_mb"], "speed": speed["results"],
-                     "fidelity": fidelity, "stability": stab})
+                     "fidelity": fidelity, "stability": stab, "style": look})
         if m is teacher_m:
             samples = {"teacher": clean[cfg.sample_image % len(clean)]}
         else:
@@ -132,7 +138,9 @@ def bench(models: list[str], teacher: str, content: list[str], out: Path,
            "held_out": [{"path": p, "sha256": h} for p, h in held_hashes.items()],
            "clip": clip_name, "quality_resolution": f"{qw}x{qh}",
            "resolutions": [f"{w}x{h}" for w, h in sizes], "pixels_per_degree": ppd,
-           "noise_sigma": cfg.noise_sigma, "floor": floor, "models": rows}
+           "noise_sigma": cfg.noise_sigma, "floor": floor, "models": rows,
+           "style_features": {"source": scorer.source, "style": style or loaded[0].meta.style}
+           if scorer else {"unavailable": no_style}}
     report.write_all(rep, out, samples, images[cfg.sample_image % len(images)])
     return rep
 

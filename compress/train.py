@@ -22,10 +22,10 @@ from limner.runtime import config as cfgmod
 from . import checkpoint as ckptmod
 from .content import ContentSet, load_content, sample_batch
 from .losses import content_loss, gram, style_loss_layer, tv_loss
-from .lossnet import CONTENT_LAYER, STYLE_LAYERS, build_loss_net
+from .lossnet import CONTENT_LAYER, SOURCES, STYLE_LAYERS, build_loss_net
 from limner.runtime.progress import Progress
 from .registry import build
-from .styles import style_image
+from limner.runtime.styles import style_image
 
 
 @dataclass
@@ -39,8 +39,9 @@ class TrainConfig:
     style_layer_weights: list[float] = field(default_factory=lambda: [1.0, 1.0, 1.0, 1.0])
     tv_weight: float = 0.05         # smoothness prior relative to the photo's TV (tuned here)
     normalize_losses: bool = True   # divide each term by its value on the first batch
-    loss_net: str = "vgg16"         # "vgg16" (weights file / hub cache / download) or "random"
-    loss_weights: str = ""          # path to a VGG-16 state dict
+    loss_net: str = "hed"           # one of lossnet.SOURCES: hed, vgg16-keras, vgg16, random
+    loss_weights: str = ""          # weight file for the loss network (default: found by source)
+    content_layer: str = CONTENT_LAYER  # feature reconstruction tap (Johnson et al. 2016: relu2_2)
     loss_seed: int = 0              # seed of the random loss network
     style_size: int = 256           # style image side fed to the loss network
     seed: int = 0
@@ -57,8 +58,10 @@ class TrainConfig:
         if len(self.style_layer_weights) != len(STYLE_LAYERS):
             raise ValueError(f"style_layer_weights: need {len(STYLE_LAYERS)} values "
                              f"({', '.join(STYLE_LAYERS)}), got {len(self.style_layer_weights)}")
-        if self.loss_net not in ("vgg16", "random"):
-            raise ValueError(f"loss_net={self.loss_net!r}: must be 'vgg16' or 'random'")
+        if self.loss_net not in SOURCES:
+            raise ValueError(f"loss_net={self.loss_net!r}: must be one of {', '.join(SOURCES)}")
+        if self.content_layer not in STYLE_LAYERS:
+            raise ValueError(f"content_layer={self.content_layer!r}: must be one of {', '.join(STYLE_LAYERS)}")
 
 
 class TrainError(Exception):
@@ -85,9 +88,9 @@ class PerceptualLoss:
         # y: stylised (B, 3, H, W); x: content (B, 3, H, W); both RGB in [0, 1]
         fy = self.net(y)
         with torch.no_grad():
-            fx = self.net(x, upto=CONTENT_LAYER)
+            fx = self.net(x, upto=self.cfg.content_layer)
         # TV relative to the content's own TV: scale-free, so it is not start-normalised
-        t = {"content": content_loss(fy[CONTENT_LAYER], fx[CONTENT_LAYER]),
+        t = {"content": content_loss(fy[self.cfg.content_layer], fx[self.cfg.content_layer]),
              "tv": tv_loss(y) / tv_loss(x).clamp_min(1e-8)}
         for k in STYLE_LAYERS:
             t[f"style_{k}"] = style_loss_layer(fy[k], self.style_grams[k])
@@ -107,22 +110,21 @@ class PerceptualLoss:
         return total, logs
 
 
-def _preview(model: torch.nn.Module, images: list[np.ndarray], path: Path) -> None:
-    tiles_in, tiles_out = [], []
+def _preview(model: torch.nn.Module, images: list[np.ndarray], path: Path, width: int = 480) -> None:
+    """Each whole image at `width` px (input above, output below), side by side."""
+    cols = []
     for img in images:
         h, w = img.shape[:2]
-        s = min(h, w, 256)
-        y, x = (h - s) // 2, (w - s) // 2
-        crop = np.ascontiguousarray(img[y:y + s, x:x + s][:, :, ::-1])
-        crop = crop[: s // 4 * 4, : s // 4 * 4]
+        tw, th = width, max(4, round(h * width / w / 4) * 4)
+        small = cv2.resize(img, (tw, th), interpolation=cv2.INTER_AREA)
         with torch.no_grad():
-            out = model(_to_tensor(crop[None]))[0].permute(1, 2, 0).numpy()
-        tiles_in.append(crop[:, :, ::-1])
-        tiles_out.append((out[:, :, ::-1] * 255 + 0.5).clip(0, 255).astype(np.uint8))
-    hgt = min(t.shape[0] for t in tiles_in)
-    row = lambda ts: np.concatenate([cv2.resize(t, (hgt, hgt)) for t in ts], 1)  # noqa: E731
+            out = model(_to_tensor(small[None, :, :, ::-1].copy()))[0].permute(1, 2, 0).numpy()
+        styled = (out[:, :, ::-1] * 255 + 0.5).clip(0, 255).astype(np.uint8)
+        cols.append(np.concatenate([small, styled], 0))
+    hgt = max(c.shape[0] for c in cols)
+    cols = [np.pad(c, ((0, hgt - c.shape[0]), (0, 0), (0, 0))) for c in cols]
     path.parent.mkdir(parents=True, exist_ok=True)
-    cv2.imwrite(str(path), np.concatenate([row(tiles_in), row(tiles_out)], 0))
+    cv2.imwrite(str(path), np.concatenate(cols, 1))
 
 
 def _log_rows_upto(csv_path: Path, step: int) -> None:

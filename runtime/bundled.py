@@ -1,5 +1,5 @@
 """Paths of what ships inside the package: the live default, the teacher it was
-compressed from, the candidate ladder and the demo photos."""
+compressed from, the candidate ladder, the photo corpus and the demo video."""
 from __future__ import annotations
 
 from pathlib import Path
@@ -10,11 +10,9 @@ MODELS = ASSETS / "models"
 DEFAULT_MODEL = MODELS / "default.onnx"
 TEACHER_MODEL = MODELS / "ember-teacher.onnx"
 CANDIDATES = ASSETS / "candidates" / "ember"
+# Split by source image (photos/SOURCES.md): train, calib, heldout.
 PHOTOS = ASSETS / "photos"
-# Split by source image (SOURCES.md): the demo teacher and students never saw these.
-HELD_OUT_PHOTOS = ("chelsea", "grace_hopper")
-TRAIN_PHOTOS = ("astronaut", "coffee", "rocket")
-
-
-def photo(name: str) -> Path:
-    return PHOTOS / f"{name}.jpg"
+TRAIN_PHOTOS = PHOTOS / "train"
+CALIB_PHOTOS = PHOTOS / "calib"
+HELD_OUT_PHOTOS = PHOTOS / "heldout"
+STREET_CLIP = ASSETS / "clips" / "street.mp4"

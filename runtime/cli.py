@@ -29,9 +29,12 @@ def _add_train(p: argparse.ArgumentParser) -> None:
                           ("--content-weight", float, "content weight"),
                           ("--seed", int, "random seed"), ("--threads", int, "torch threads")):
         p.add_argument(flag, type=tp, help=hlp + " (overrides the config)")
-    p.add_argument("--loss-net", choices=["vgg16", "random"],
-                   help="vgg16 (weights file, hub cache or download) or random features (explicit)")
-    p.add_argument("--loss-weights", metavar="FILE", help="VGG-16 state dict (features.N.weight layout)")
+    p.add_argument("--loss-net", choices=["hed", "vgg16-keras", "vgg16", "random"],
+                   help="hed: HED's VGG-16 trunk (default; `make loss-weights` fetches it); vgg16-keras: "
+                        "a Keras VGG-16 .h5 file; vgg16: a PyTorch state dict (file, hub cache or "
+                        "download); random: random-weight features (tests and experiments only)")
+    p.add_argument("--loss-weights", metavar="FILE",
+                   help="the loss network's weight file (.h5 for hed / vgg16-keras, .pth for vgg16)")
 
 
 def _run_train(a: argparse.Namespace) -> int:
@@ -153,6 +156,8 @@ def _add_bench(p: argparse.ArgumentParser) -> None:
     p.add_argument("--content", nargs="+", required=True, metavar="HELD_OUT",
                    help="held-out images (never seen in training, distillation or calibration)")
     p.add_argument("--clip", metavar="VIDEO", help="clip for the warping error (default: the demo clip)")
+    p.add_argument("--style", metavar="STYLE", help="style image for the style scores: a bundled style "
+                   "name or an image (default: the teacher's style, when bundled)")
     p.add_argument("--config", type=Path, help="TOML bench config (configs/bench/default.toml)")
     p.add_argument("--resolutions", nargs="+", metavar="WxH", help="override the resolution ladder")
     p.add_argument("--threads", nargs="+", type=int, metavar="N", help="override thread counts (0: all)")
@@ -169,7 +174,7 @@ def _run_bench(a: argparse.Namespace) -> int:
                                               "frames": a.frames})
     if a.resolutions and cfg.plot_resolution not in cfg.resolutions:
         cfg.plot_resolution = cfg.resolutions[min(1, len(cfg.resolutions) - 1)]
-    bench(a.models, a.teacher, a.content, a.out, cfg, clip=a.clip)
+    bench(a.models, a.teacher, a.content, a.out, cfg, clip=a.clip, style=a.style)
     print(f"report: {a.out / 'report.md'} (json, csv, pareto.png, samples.png beside it)")
     return 0
 

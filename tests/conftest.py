@@ -1,4 +1,5 @@
-"""Shared fixtures: real photos from scikit-image's bundled sample data."""
+"""Shared fixtures: real photos (scikit-image's bundled sample data and Limner's bundled
+held-out corpus, runtime/assets/photos/heldout; sources in its SOURCES.md)."""
 from __future__ import annotations
 
 import os
@@ -11,12 +12,18 @@ import pytest
 REPO = Path(__file__).resolve().parents[1]
 
 
+HELD_OUT = REPO / "runtime" / "assets" / "photos" / "heldout"
+
+
 def sample_photos() -> dict[str, np.ndarray]:
-    """scikit-image's bundled natural colour photos, as BGR uint8 (OpenCV's layout)."""
+    """Natural colour photos as BGR uint8 (OpenCV's layout): chelsea and coffee from
+    scikit-image itself, fruits and squirrel from the bundled held-out corpus."""
+    import cv2
     import skimage.data as d
 
-    return {n: np.ascontiguousarray(getattr(d, n)()[:, :, ::-1])
-            for n in ("astronaut", "chelsea", "coffee", "rocket")}
+    out = {n: np.ascontiguousarray(getattr(d, n)()[:, :, ::-1]) for n in ("chelsea", "coffee")}
+    out |= {n: cv2.imread(str(HELD_OUT / f"{n}.jpg"), cv2.IMREAD_COLOR) for n in ("fruits", "squirrel")}
+    return out
 
 
 @pytest.fixture(scope="session")

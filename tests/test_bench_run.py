@@ -17,7 +17,7 @@ from limner.compress.registry import build
 from conftest import PY, REPO
 
 HERE = Path(__file__).parent
-HELD_OUT = [str(REPO / "runtime/assets/photos/chelsea.jpg"), str(REPO / "runtime/assets/photos/grace_hopper.jpg")]
+HELD_OUT = [str(REPO / "runtime/assets/photos/heldout/chelsea.jpg"), str(REPO / "runtime/assets/photos/heldout/street-1.jpg")]
 TINY = """resolutions = ["320x192"]
 quality_resolution = "320x192"
 plot_resolution = "320x192"

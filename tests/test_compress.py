@@ -20,7 +20,7 @@ from limner.runtime.model import load_model
 
 from conftest import PY, REPO
 
-PHOTOS = [str(REPO / "runtime/assets/photos" / f"{n}.jpg") for n in ("astronaut", "coffee", "rocket")]
+PHOTOS = [str(REPO / "runtime/assets/photos/train" / f"{n}.jpg") for n in ("dog", "hotel", "apple")]
 TINY_RECIPE = """crop = 64
 batch = 2
 cache_crops = 12

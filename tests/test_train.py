@@ -16,7 +16,7 @@ from limner.compress import checkpoint as ck
 from limner.compress.train import TrainConfig, TrainError, train
 
 REPO = Path(__file__).resolve().parents[1]
-PHOTO = str(REPO / "runtime" / "assets" / "photos" / "astronaut.jpg")
+PHOTO = str(REPO / "runtime" / "assets" / "photos" / "train" / "dog.jpg")
 
 
 def _cfg(**kw) -> TrainConfig:

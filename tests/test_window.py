@@ -43,7 +43,7 @@ def xserver():
 
 
 def test_fullscreen_window_shows_the_model_output(xserver, teacher_onnx, tmp_path):
-    photo = cv2.imread(str(REPO / "runtime/assets/photos/rocket.jpg"))
+    photo = cv2.imread(str(REPO / "runtime/assets/photos/heldout/squirrel.jpg"))
     still = cv2.resize(photo, (W, H), interpolation=cv2.INTER_AREA)
     clip = tmp_path / "still.avi"
     w = cv2.VideoWriter(str(clip), cv2.VideoWriter_fourcc(*"MJPG"), 30, (W, H))

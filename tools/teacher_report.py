@@ -22,7 +22,7 @@ from limner.bench.metrics import ssim
 from limner.compress import checkpoint as ck
 from limner.compress.lossnet import build_loss_net
 from limner.compress.registry import build
-from limner.compress.styles import style_image
+from limner.runtime.styles import style_image
 from limner.compress.train import PerceptualLoss, TrainConfig, _to_tensor
 from limner.runtime import config as cfgmod
 

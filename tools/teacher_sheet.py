@@ -1,0 +1,72 @@
+"""One side-by-side picture per style for docs/: the style image, held-out photos and a
+frame of the held-out street video, each above the model's output (640x360 inputs).
+
+    python tools/teacher_sheet.py MODEL.onnx --style ember -o docs/ember-teacher.png \\
+        [--photos runtime/assets/photos/heldout/{chelsea,squirrel}.jpg] [--frame 60]
+"""
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+import cv2
+import numpy as np
+
+from limner.bench.prepare import cover_crop, read_image
+from limner.runtime.bundled import HELD_OUT_PHOTOS, STREET_CLIP
+from limner.runtime.model import load_model
+from limner.runtime.styles import style_image
+
+
+def _label(img: np.ndarray, text: str) -> np.ndarray:
+    img = img.copy()
+    cv2.rectangle(img, (0, 0), (img.shape[1], 24), (0, 0, 0), -1)
+    cv2.putText(img, text, (6, 17), cv2.FONT_HERSHEY_SIMPLEX, 0.5, (255, 255, 255), 1, cv2.LINE_AA)
+    return img
+
+
+def video_frame(index: int) -> np.ndarray:
+    cap = cv2.VideoCapture(str(STREET_CLIP))
+    frame = None
+    for _ in range(index + 1):
+        ok, f = cap.read()
+        if not ok:
+            break
+        frame = f
+    cap.release()
+    if frame is None:
+        raise SystemExit(f"{STREET_CLIP}: no frame {index}")
+    return frame
+
+
+def sheet(model_path: Path, style: str, photos: list[Path], frame: int) -> np.ndarray:
+    m = load_model(model_path)
+    style_bgr, name = style_image(style)
+    inputs = [(p.stem, cover_crop(read_image(p), 640, 360)) for p in photos]
+    inputs.append((f"street video, frame {frame}", cover_crop(video_frame(frame), 640, 360)))
+    sq = cv2.resize(style_bgr, (360, 360), interpolation=cv2.INTER_AREA)
+    top = [_label(sq, f"style: {name}")] + [_label(i, f"held-out: {n}") for n, i in inputs]
+    bottom = [np.full_like(sq, 255)] + [_label(m.run(i), f"{m.meta.name or model_path.stem}")
+                                         for _, i in inputs]
+    return np.concatenate([np.concatenate(top, 1), np.concatenate(bottom, 1)], 0)
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    ap.add_argument("model", type=Path)
+    ap.add_argument("--style", required=True)
+    ap.add_argument("--photos", nargs="+", type=Path,
+                    default=[HELD_OUT_PHOTOS / "chelsea.jpg", HELD_OUT_PHOTOS / "street-1.jpg"])
+    ap.add_argument("--frame", type=int, default=60)
+    ap.add_argument("--scale", type=float, default=0.6, help="output scale (keeps docs/ small)")
+    ap.add_argument("-o", "--out", type=Path, required=True)
+    a = ap.parse_args()
+    img = sheet(a.model, a.style, a.photos, a.frame)
+    img = cv2.resize(img, None, fx=a.scale, fy=a.scale, interpolation=cv2.INTER_AREA)
+    a.out.parent.mkdir(parents=True, exist_ok=True)
+    cv2.imwrite(str(a.out), img)
+    print(a.out)
+
+
+if __name__ == "__main__":
+    main()
