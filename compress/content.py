@@ -157,9 +157,37 @@ def _jitter(img: np.ndarray, rng: np.random.Generator) -> np.ndarray:
     return np.clip(f, 0, 255).astype(np.uint8)
 
 
-def sample_frame(cs: ContentSet, rng: np.random.Generator, width: int, height: int) -> np.ndarray:
+def camera_augment(img: np.ndarray, rng: np.random.Generator) -> np.ndarray:
+    """What a camera does to a scene, drawn at random (BGR uint8 in and out): exposure
+    (gain 0.7-1.3), white balance (blue and red gains 0.85-1.15 against green), motion
+    blur (a 3-9 px line in a random direction, 30% of frames), sensor noise (Gaussian,
+    sigma 0-4 grey levels) and JPEG compression (quality 40-95, 50% of frames). Ranges
+    are common practice for camera augmentation, no source; chosen to span a webcam's."""
+    f = img.astype(np.float32)
+    gain = rng.uniform(0.7, 1.3)
+    wb = np.array([rng.uniform(0.85, 1.15), 1.0, rng.uniform(0.85, 1.15)], np.float32)
+    f *= gain * wb
+    if rng.random() < 0.3:
+        n = int(rng.integers(3, 10))
+        k = np.zeros((n, n), np.float32)
+        a = rng.uniform(0, np.pi)
+        c, dx, dy = (n - 1) / 2, np.cos(a), np.sin(a)
+        for t in np.linspace(-c, c, 2 * n):
+            k[int(round(c + t * dy)), int(round(c + t * dx))] = 1.0
+        f = cv2.filter2D(f, -1, k / k.sum(), borderType=cv2.BORDER_REFLECT)
+    f += rng.normal(0, rng.uniform(0, 4), f.shape).astype(np.float32)
+    out = np.clip(f, 0, 255).round().astype(np.uint8)
+    if rng.random() < 0.5:
+        ok, buf = cv2.imencode(".jpg", out, [cv2.IMWRITE_JPEG_QUALITY, int(rng.integers(40, 96))])
+        out = cv2.imdecode(buf, cv2.IMREAD_COLOR)
+    return out
+
+
+def sample_frame(cs: ContentSet, rng: np.random.Generator, width: int, height: int,
+                 camera: bool = False) -> np.ndarray:
     """A camera-like frame: a random window of the frame's aspect (50-100% of the
-    largest that fits), resized to width x height, jittered -> (height, width, 3) uint8 BGR."""
+    largest that fits), resized to width x height, jittered (and, with `camera`, put
+    through camera_augment) -> (height, width, 3) uint8 BGR."""
     img = cs.items[int(rng.integers(len(cs.items)))].image
     h, w = img.shape[:2]
     k = min(w / width, h / height) * rng.uniform(0.5, 1.0)
@@ -168,4 +196,5 @@ def sample_frame(cs: ContentSet, rng: np.random.Generator, width: int, height: i
     x = int(rng.integers(0, w - ww + 1))
     win = img[y:y + wh, x:x + ww]
     interp = cv2.INTER_AREA if ww > width else cv2.INTER_LINEAR
-    return np.ascontiguousarray(_jitter(cv2.resize(win, (width, height), interpolation=interp), rng))
+    frame = _jitter(cv2.resize(win, (width, height), interpolation=interp), rng)
+    return np.ascontiguousarray(camera_augment(frame, rng) if camera else frame)

@@ -46,7 +46,8 @@ def build_cache(teacher: Model, data: ContentSet, recipe: Recipe, path: Path) ->
     """
     path = Path(path)
     n, c = recipe.cache_crops, recipe.crop
-    key = f"v2:{recipe.target_frame or 'crop'}:{recipe.crops_per_frame}:{recipe.seed}"
+    key = (f"v3:{recipe.target_frame or 'crop'}:{recipe.crops_per_frame}:{recipe.seed}:"
+           f"{'camera' if recipe.camera_augment else 'plain'}")
     if path.exists():
         z = dict(np.load(path))
         if z["inputs"].shape[0] == n and z["inputs"].shape[1] == c and str(z.get("key", "")) == key:
@@ -84,7 +85,7 @@ def _frames(data: ContentSet, recipe: Recipe, count: int, w: int, h: int):
     c, per = recipe.crop, recipe.crops_per_frame
     for f in range(count):
         rng = np.random.default_rng([recipe.seed, 7919, f])
-        frame = sample_frame(data, rng, w, h)            # (h, w, 3) BGR
+        frame = sample_frame(data, rng, w, h, recipe.camera_augment)  # (h, w, 3) BGR
         offsets = [(8 * int(rng.integers(0, (h - c) // 8 + 1)), 8 * int(rng.integers(0, (w - c) // 8 + 1)))
                    for _ in range(per)]
         yield frame, offsets

@@ -166,7 +166,10 @@ def _int8_probe(types: str, log: Callable[[str], None]) -> dict:
             "spec": asdict(r.spec)}
 
 
-def compress(teacher: str, content: list[str], recipe: Recipe, out: Path) -> dict:
+def compress(teacher: str, content: list[str], recipe: Recipe, out: Path,
+             calibration: list[str] | None = None) -> dict:
+    """`calibration`: content kept for int8 calibration only; when given, `content` is all
+    distillation (no fractions are split off it)."""
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
     (out / "work").mkdir(exist_ok=True)
@@ -195,8 +198,15 @@ def compress(teacher: str, content: list[str], recipe: Recipe, out: Path) -> dic
     teacher_sha = file_sha256(teacher_onnx)
     manifest["teacher"] = {"path": str(tpath), "sha256": teacher_sha, "style": tmodel.meta.style}
 
-    data = load_content(content, min_items=3, min_side=recipe.crop)
-    splits = split_by_source(data, recipe)
+    data = load_content(content, min_items=1 if calibration else 3, min_side=recipe.crop)
+    if calibration:
+        calib = load_content(calibration, min_items=1, min_side=recipe.crop)
+        shared = set(calib.hashes()) & set(data.hashes())
+        if shared:
+            raise CompressError(f"{len(shared)} calibration file(s) are also in --content; keep them apart")
+        splits = {"distillation": data, "calibration": calib, "held_out": ContentSet([], [])}
+    else:
+        splits = split_by_source(data, recipe)
     manifest["splits"] = {k: {"sources": v.sources(), "sha256": v.hashes()} for k, v in splits.items()}
     if data.skipped:
         log(f"skipped {len(data.skipped)} unreadable or too small content file(s)")

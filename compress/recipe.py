@@ -123,13 +123,14 @@ class Recipe:
     cache_crops: int = 1500        # teacher targets computed once, reused by every student
     target_frame: str = "640x360"  # teacher styles whole frames of this size ("" = each crop alone)
     crops_per_frame: int = 8
+    camera_augment: bool = True    # frames get exposure, white balance, blur, noise, JPEG (content.py)
     seed: int = 0
     threads: int = 0
     device: str = "cpu"            # where distillation trains: cpu, cuda (or cuda:N), auto
     checkpoint_every: int = 100
     calibration_fraction: float = 0.15   # of content sources (split by source image)
     held_out_fraction: float = 0.15
-    loss_net: str = "random"
+    loss_net: str = "hed"          # loss-network source for the feature and Gram terms (lossnet.SOURCES)
     loss_weights: str = ""
     loss_seed: int = 0
     loss: LossWeights = field(default_factory=LossWeights)

@@ -48,6 +48,7 @@ class TrainConfig:
     checkpoint_every: int = 100
     preview_every: int = 250
     threads: int = 0                # 0: torch's default
+    init: str = ""                  # a teacher checkpoint to start from (e.g. another style's teacher)
 
     def __post_init__(self) -> None:
         if self.size < 32 or self.size % 4:
@@ -142,6 +143,23 @@ class _Stop(Exception):
     pass
 
 
+def _warm_start(model: torch.nn.Module, path: Path) -> str:
+    """Load a teacher checkpoint's weights into `model` (same architecture); returns its sha256."""
+    from limner.runtime.hashing import file_sha256
+
+    if not path.is_file():
+        raise TrainError(f"init={str(path)!r}: no such checkpoint")
+    try:
+        ck = ckptmod.load(path)
+    except ckptmod.CheckpointError as e:
+        raise TrainError(f"init={str(path)!r}: {e}") from None
+    if ck.family != "teacher" or ck.model_args != model.model_args:
+        raise TrainError(f"init={str(path)!r}: holds a {ck.family} {ck.model_args}, not a teacher "
+                         f"like this run's {model.model_args}")
+    model.load_state_dict(ck.state_dict)
+    return file_sha256(path)
+
+
 def train(style: str, content: list[str], out: Path, cfg: TrainConfig, *,
           resume: bool = False, preview_content: list[str] | None = None,
           export_onnx: bool = True) -> Path:
@@ -176,6 +194,9 @@ def train(style: str, content: list[str], out: Path, cfg: TrainConfig, *,
     loss = PerceptualLoss(cfg, lossnet, np.ascontiguousarray(style_bgr[:, :, ::-1]))
 
     model = build("teacher")
+    init_sha = ""
+    if cfg.init and state is None:
+        init_sha = _warm_start(model, Path(cfg.init))
     opt = torch.optim.Adam(model.parameters(), lr=cfg.lr)
     if state is not None:
         model.load_state_dict(state.state_dict)
@@ -188,6 +209,7 @@ def train(style: str, content: list[str], out: Path, cfg: TrainConfig, *,
             "style_sha256": hashlib.sha256(style_bgr.tobytes()).hexdigest(),
             "loss_network": source.describe(),
             "data_sha256": data.hashes(), "data_sources": data.sources(),
+            "init_sha256": init_sha or (state.meta.get("init_sha256", "") if state is not None else ""),
             "config": cfgmod.to_jsonable(cfg)}
     cv2.imwrite(str(out / "style.png"), style_bgr)
 

@@ -123,6 +123,8 @@ def _add_compress(p: argparse.ArgumentParser) -> None:
     p.add_argument("--content", nargs="+", required=True, metavar="PATH",
                    help="image folders, images, videos, scenes:N; split by source into "
                         "distillation, calibration and held-out sets")
+    p.add_argument("--calibration", nargs="+", metavar="PATH",
+                   help="content for int8 calibration only (then --content is all distillation)")
     p.add_argument("--recipe", type=Path, help="TOML recipe (default: configs/compress/default.toml)")
     p.add_argument("-o", "--out", type=Path, required=True, metavar="OUT")
 
@@ -134,7 +136,7 @@ def _run_compress(a: argparse.Namespace) -> int:
 
     recipe = cfgmod.load(Recipe, a.recipe or _default_recipe())
     try:
-        manifest = compress(a.teacher, a.content, recipe, a.out)
+        manifest = compress(a.teacher, a.content, recipe, a.out, calibration=a.calibration)
     except KeyboardInterrupt:
         print(f"\ninterrupted; the current candidate's checkpoint is saved under {a.out / 'work'}. "
               "Run the same command again to continue.", file=sys.stderr)

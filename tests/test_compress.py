@@ -117,7 +117,7 @@ def test_cached_targets_are_crops_of_whole_frame_outputs(teacher_onnx, tmp_path)
     teacher = load_model(teacher_onnx, threads=1)
     cache = build_cache(teacher, data, recipe, tmp_path / "cache.npz")
     for f in range(2):
-        frame = sample_frame(data, np.random.default_rng([recipe.seed, 7919, f]), 160, 96)
+        frame = sample_frame(data, np.random.default_rng([recipe.seed, 7919, f]), 160, 96, recipe.camera_augment)
         out = teacher.run(frame)
         for i in range(3 * f, 3 * f + 3):
             rgb = cache["inputs"][i]
@@ -130,6 +130,25 @@ def test_cached_targets_are_crops_of_whole_frame_outputs(teacher_onnx, tmp_path)
     # a changed recipe rebuilds the cache instead of reusing stale targets
     other = build_cache(teacher, data, Recipe(crop=64, cache_crops=6, target_frame=""), tmp_path / "cache.npz")
     assert not np.array_equal(other["inputs"], cache["inputs"])
+
+
+def test_camera_augment_stays_within_its_stated_ranges(photos):
+    """Exposure and white balance within the documented gains, noise that a denoiser
+    (OpenCV's Gaussian blur as the reference low-pass) mostly removes, and the frame
+    stays the same scene (SSIM to the original above 0.3, Wang et al. 2004)."""
+    from limner.bench.metrics import ssim
+    from limner.compress.content import camera_augment
+
+    img = photos["coffee"][:192, :256]
+    ratios, changed = [], 0
+    for k in range(24):
+        out = camera_augment(img, np.random.default_rng(k))
+        assert out.shape == img.shape and out.dtype == np.uint8
+        ratios.append(out[:, :, 1].mean() / img[:, :, 1].mean())  # green: exposure only
+        changed += not np.array_equal(out, img)
+        assert ssim(out, img) > 0.3
+    assert changed == 24
+    assert 0.6 < min(ratios) and max(ratios) < 1.4 and max(ratios) - min(ratios) > 0.2
 
 
 @pytest.fixture(scope="module")

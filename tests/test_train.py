@@ -89,3 +89,25 @@ def test_killed_run_resumes_from_last_checkpoint(tmp_path):
     steps = [int(r["step"]) for r in csv.DictReader((run / "losses.csv").open())]
     assert steps == list(range(1, saved + 3))  # the log has no rows from the lost steps
     assert (run / "teacher.onnx").exists()
+
+
+def test_init_starts_from_another_teacher_and_refuses_other_nets(tmp_path):
+    """A warm start copies the given teacher's weights exactly (step 0 output equals it)."""
+    train("ember", [PHOTO], tmp_path / "a", _cfg(steps=3), export_onnx=False)
+    first = ck.load(tmp_path / "a" / "checkpoint.pt")
+    from limner.compress.train import _warm_start
+    from limner.compress.registry import build
+
+    net = build("teacher")
+    sha = _warm_start(net, tmp_path / "a" / "checkpoint.pt")
+    assert len(sha) == 64
+    assert all(torch.equal(v, first.state_dict[k]) for k, v in net.state_dict().items())
+    train("woodcut", [PHOTO], tmp_path / "b", _cfg(steps=3, init=str(tmp_path / "a" / "checkpoint.pt")),
+          export_onnx=False)
+    assert ck.load(tmp_path / "b" / "checkpoint.pt").meta["init_sha256"] == sha
+    student = build("student", width=0.25, blocks=1)
+    ck.save(ck.from_model(student, {}), tmp_path / "s.pt")
+    with pytest.raises(TrainError, match="not a teacher"):
+        _warm_start(build("teacher"), tmp_path / "s.pt")
+    with pytest.raises(TrainError, match="no such checkpoint"):
+        _warm_start(build("teacher"), tmp_path / "none.pt")
