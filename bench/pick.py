@@ -54,6 +54,14 @@ def resolve_threshold(text: str | float | None, floor: float | None, flag: str) 
     return {None: floor, "*": floor * k, "+": floor + k, "-": floor - k}[op]
 
 
+def model_path(rep: dict, row: dict) -> str:
+    """A model's path as usable from here: reports store paths relative to their own folder."""
+    import os
+
+    p = Path(row["path"])
+    return str(p) if p.is_absolute() else os.path.relpath(Path(rep.get("_dir", ".")) / p)
+
+
 def load_report(path: str | Path) -> dict:
     p = Path(path)
     if p.is_dir():
@@ -62,6 +70,7 @@ def load_report(path: str | Path) -> dict:
         raise PickError(f"{path}: no report.json (run `limner bench ... -o REPORT` first)")
     try:
         rep = json.loads(p.read_text())
+        rep["_dir"] = str(p.parent)
     except json.JSONDecodeError as e:
         raise PickError(f"{p}: not valid JSON ({e})") from None
     if rep.get("schema") != 1:
@@ -110,7 +119,7 @@ def pick(report: str | Path, *, min_fps: float | None = None, min_ms_ssim=None, 
         why = [f"{v['fps']:.1f} fps at {res}"] + [
             f"{AXES[k].key} {v[k]:.4g} ({'>=' if AXES[k].higher else '<='} {active[k]:.4g})"
             for k in active if k != "fps"]
-        lines = [best["path"], f"chosen: {best['name']} ({best['precision']}), the fastest of "
+        lines = [model_path(rep, best), f"chosen: {best['name']} ({best['precision']}), the fastest of "
                  f"{len(passing)} qualifying model(s): " + ", ".join(why)]
         return PickResult(best, lines)
     lines = [f"no model meets all thresholds at {res}: "

@@ -74,6 +74,12 @@ def _clip_frames(clip: str | None, n: int, w: int, h: int) -> tuple[list[np.ndar
     return frames, (clip or "bundled demo clip")
 
 
+def _rel(path: str | Path, out: Path) -> str:
+    import os
+
+    return os.path.relpath(Path(path).resolve(), Path(out).resolve())
+
+
 def _run_all(model: Model, frames: list[np.ndarray]) -> list[np.ndarray]:
     return [model.run(f) for f in frames]
 
@@ -133,10 +139,12 @@ def bench(models: list[str], teacher: str, content: list[str], out: Path,
         else:
             samples[m.meta.name or m.path.stem] = clean[cfg.sample_image % len(clean)]
     bar.close()
+    for r in rows:  # paths relative to the report folder: the report can move with its models
+        r["path"] = _rel(r["path"], out)
     rep = {"schema": SCHEMA_VERSION, "machine": machine.describe(),
-           "config": asdict(cfg), "teacher": str(teacher_path),
-           "held_out": [{"path": p, "sha256": h} for p, h in held_hashes.items()],
-           "clip": clip_name, "quality_resolution": f"{qw}x{qh}",
+           "config": asdict(cfg), "teacher": _rel(teacher_path, out),
+           "held_out": [{"path": _rel(p, out), "sha256": h} for p, h in held_hashes.items()],
+           "clip": _rel(clip, out) if clip else clip_name, "quality_resolution": f"{qw}x{qh}",
            "resolutions": [f"{w}x{h}" for w, h in sizes], "pixels_per_degree": ppd,
            "noise_sigma": cfg.noise_sigma, "floor": floor, "models": rows,
            "style_features": {"source": scorer.source, "style": style or loaded[0].meta.style}

@@ -70,6 +70,17 @@ def save(ckpt: Checkpoint, path: Path) -> None:
     atomic_write_bytes(Path(path), lambda f: torch.save(blob, f))
 
 
+def load_failure(e: BaseException) -> str:
+    """Why torch.load(weights_only=True) refused a file, without torch's advice to load it
+    with weights_only=False (that would run code from the file: Limner never does)."""
+    text = str(e).strip()
+    if "weights only" in text.lower() or "weights_only" in text:
+        return ("it holds Python objects beyond tensors and plain data, which could run code "
+                "when loaded; Limner loads weights only")
+    first = text.splitlines()[0] if text else type(e).__name__
+    return first[:200]
+
+
 def load(path: Path) -> Checkpoint:
     path = Path(path)
     if not path.is_file():
@@ -77,8 +88,7 @@ def load(path: Path) -> Checkpoint:
     try:
         blob = torch.load(path, map_location="cpu", weights_only=True)
     except Exception as e:  # truncated, foreign or code-carrying pickles
-        first = str(e).strip().splitlines()[0] if str(e).strip() else type(e).__name__
-        raise CheckpointError(f"{path}: not a readable Limner checkpoint ({first})") from None
+        raise CheckpointError(f"{path}: not a readable Limner checkpoint ({load_failure(e)})") from None
     if not isinstance(blob, dict) or "limner_checkpoint" not in blob:
         raise CheckpointError(f"{path}: not a Limner checkpoint (no 'limner_checkpoint' key)")
     if blob["limner_checkpoint"] > CHECKPOINT_FORMAT:

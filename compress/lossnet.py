@@ -163,7 +163,8 @@ def _load_torch_file(net: VGG16Features, path: Path, kind: str) -> LossNetSource
     try:
         state = torch.load(path, map_location="cpu", weights_only=True)
     except Exception as e:
-        raise LossNetError(f"{path}: cannot read as a state dict ({str(e).splitlines()[0]})") from None
+        from .checkpoint import load_failure
+        raise LossNetError(f"{path}: cannot read as a state dict ({load_failure(e)})") from None
     if not isinstance(state, dict):
         raise LossNetError(f"{path}: not a state dict")
     load_state_dict_into(net, state, str(path))

@@ -171,33 +171,22 @@ def compress(teacher: str, content: list[str], recipe: Recipe, out: Path,
     """`calibration`: content kept for int8 calibration only; when given, `content` is all
     distillation (no fractions are split off it)."""
     out = Path(out)
-    out.mkdir(parents=True, exist_ok=True)
-    (out / "work").mkdir(exist_ok=True)
-    log = _Log(out / "compress.log")
-    if recipe.threads:
-        torch.set_num_threads(recipe.threads)
-    device = train_device(recipe.device)
-    (out / "recipe.toml").write_text(cfgmod.dumps_toml(recipe))
-    manifest_path = out / "manifest.json"
-    manifest = json.loads(manifest_path.read_text()) if manifest_path.exists() else {"candidates": {}}
-
-    # teacher: a checkpoint is exported first; an ONNX file is used as it is
+    # inputs are checked before anything is written: a bad teacher or content leaves no OUT
     tpath = Path(teacher)
-    if tpath.suffix == ".pt":
-        teacher_onnx = export(tpath, out / "work" / "teacher.onnx", name="teacher")
-    elif tpath.suffix == ".onnx":
-        teacher_onnx = tpath
-    else:
+    if tpath.suffix not in (".pt", ".onnx"):
         raise CompressError(f"{teacher}: expected a Limner checkpoint (.pt) or model (.onnx)")
     if tpath.suffix != ".pt" and any(p.parent == "teacher" for p in recipe.prune):
         raise CompressError(f"{teacher}: pruning the teacher needs its checkpoint (.pt), not an ONNX "
                             "file; distillation alone works from ONNX")
-    tmodel = load_model(teacher_onnx)
-    if tmodel.meta.role != "teacher":
-        raise CompressError(f"{teacher}: role is {tmodel.meta.role!r}, expected a teacher")
-    teacher_sha = file_sha256(teacher_onnx)
-    manifest["teacher"] = {"path": str(tpath), "sha256": teacher_sha, "style": tmodel.meta.style}
-
+    if tpath.suffix == ".pt":
+        family = ckptmod.load(tpath).family
+        if family != "teacher":
+            raise CompressError(f"{teacher}: holds a {family}, expected a teacher")
+    else:
+        tmodel = load_model(tpath)
+        if tmodel.meta.role != "teacher":
+            raise CompressError(f"{teacher}: role is {tmodel.meta.role!r}, expected a teacher")
+    device = train_device(recipe.device)
     data = load_content(content, min_items=1 if calibration else 3, min_side=recipe.crop)
     if calibration:
         calib = load_content(calibration, min_items=1, min_side=recipe.crop)
@@ -207,6 +196,22 @@ def compress(teacher: str, content: list[str], recipe: Recipe, out: Path,
         splits = {"distillation": data, "calibration": calib, "held_out": ContentSet([], [])}
     else:
         splits = split_by_source(data, recipe)
+
+    out.mkdir(parents=True, exist_ok=True)
+    (out / "work").mkdir(exist_ok=True)
+    log = _Log(out / "compress.log")
+    if recipe.threads:
+        torch.set_num_threads(recipe.threads)
+    (out / "recipe.toml").write_text(cfgmod.dumps_toml(recipe))
+    manifest_path = out / "manifest.json"
+    manifest = json.loads(manifest_path.read_text()) if manifest_path.exists() else {"candidates": {}}
+
+    # teacher: a checkpoint is exported first; an ONNX file is used as it is
+    teacher_onnx = export(tpath, out / "work" / "teacher.onnx", name="teacher") if tpath.suffix == ".pt" else tpath
+    tmodel = load_model(teacher_onnx)
+    teacher_sha = file_sha256(teacher_onnx)
+    manifest["teacher"] = {"path": str(tpath), "sha256": teacher_sha, "style": tmodel.meta.style}
+
     manifest["splits"] = {k: {"sources": v.sources(), "sha256": v.hashes()} for k, v in splits.items()}
     if data.skipped:
         log(f"skipped {len(data.skipped)} unreadable or too small content file(s)")

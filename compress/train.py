@@ -188,6 +188,10 @@ def train(style: str, content: list[str], out: Path, cfg: TrainConfig, *,
 
     style_bgr, style_name = style_image(style)
     data: ContentSet = load_content(content, min_items=1, min_side=cfg.size // 2)
+    if data.skipped:
+        shown = ", ".join(data.skipped[:3]) + (f" and {len(data.skipped) - 3} more" if len(data.skipped) > 3 else "")
+        print(f"skipped {len(data.skipped)} content file(s) that are unreadable or smaller than "
+              f"{cfg.size // 2} px: {shown}", flush=True)
     previews = load_content(preview_content).items if preview_content else data.items[:4]
     lossnet, source = build_loss_net(cfg.loss_net, Path(cfg.loss_weights) if cfg.loss_weights else None,
                                      cfg.loss_seed)

@@ -17,10 +17,11 @@ def capture(source: str | None, frames: int, out: Path, every: int = 1, quality:
     if every < 1:
         raise ValueError(f"--every {every}: must be at least 1")
     out = Path(out)
+    src = open_source(source)  # a missing camera or unreadable file fails before out is made
+    created = not out.exists()
     out.mkdir(parents=True, exist_ok=True)
     existing = sorted(out.glob("frame_*.jpg"))
     start = int(existing[-1].stem.split("_")[1]) + 1 if existing else 1
-    src = open_source(source)
     written: list[Path] = []
     bar = Progress(frames, "capture")
     try:
@@ -42,4 +43,9 @@ def capture(source: str | None, frames: int, out: Path, every: int = 1, quality:
     finally:
         src.release()
         bar.close()
+        if created and not written:  # nothing captured (an empty file, a camera gone): no empty folder
+            try:
+                out.rmdir()
+            except OSError:
+                pass
     return written

@@ -6,9 +6,17 @@ load torch (a single-board computer runs them without it).
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 from pathlib import Path
 from typing import Callable
+
+# OpenCV's and FFmpeg's own console warnings ("moov atom not found", "global cap_v4l.cpp ...")
+# would reach the operator beside Limner's one-line messages; keep only their errors. Set
+# before cv2 is first imported (the subcommands import it lazily); an operator's own
+# setting wins.
+os.environ.setdefault("OPENCV_LOG_LEVEL", "ERROR")
+os.environ.setdefault("OPENCV_FFMPEG_LOGLEVEL", "-8")  # AV_LOG_QUIET
 
 
 
@@ -220,8 +228,11 @@ def _run_int8_probe(a: argparse.Namespace) -> int:
     w, h = parse_resolution(a.size)
     spec = ProbeSpec(channels=a.channels, kernel=a.kernel, height=h, width=w, layers=a.layers,
                      threads=a.threads, types=a.types)
-    r = probe(spec, progress=lambda i, n: print(f"\rround {i}/{n}", end="", file=sys.stderr, flush=True))
-    print(file=sys.stderr)
+    from limner.runtime.progress import Progress
+
+    bar = Progress(spec.rounds, "int8 probe rounds", min_interval_s=0.0)
+    r = probe(spec, progress=lambda i, n: bar.update(i - bar.n))
+    bar.close()
     print(r.summary())
     print(f"{r.fused_int8_convs}/{spec.layers} convs run as int8 kernels (QLinearConv); "
           f"int8 output differs from fp32 by {r.rel_rms_error:.1%} RMS")
@@ -300,11 +311,23 @@ def main(argv: list[str] | None = None) -> int:
                   f"pip install 'limner[compress]'{alone}", file=sys.stderr)
             return 2
         raise
+    except KeyboardInterrupt:
+        # subcommands that save work on Ctrl-C (train, compress) say how to continue first
+        print(f"\nlimner {a.command}: interrupted", file=sys.stderr)
+        return 130
     except Exception as e:
         if isinstance(e, _known_errors()):
-            print(f"limner {a.command}: error: {e}", file=sys.stderr)
+            print(f"limner {a.command}: error: {_one_line(e)}", file=sys.stderr)
             return 1
         raise
+
+
+def _one_line(e: BaseException) -> str:
+    """The message without errno markers: "[Errno 17] File exists: 'x'" -> "x: file exists"."""
+    if isinstance(e, OSError) and e.strerror:
+        where = f"{e.filename}: " if e.filename else ""
+        return f"{where}{e.strerror[0].lower()}{e.strerror[1:]}"
+    return str(e).strip().splitlines()[0] if str(e).strip() else type(e).__name__
 
 
 if __name__ == "__main__":

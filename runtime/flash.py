@@ -192,6 +192,10 @@ class FlashLimiter:
                 safe = np.where(np.abs(denom) < 1e-9, 1e-9, denom)
                 kk = np.clip((target - prev_level) / safe, 0.0, 1.0)
                 k = np.where(over, np.minimum(k, kk), k)
+        if self.prev_full.shape != frame_bgr.shape:
+            # the resolution governor stepped between two sizes that share an analysis size:
+            # the bookkeeping carries over, the previous output is rescaled for the blend
+            self.prev_full = cv2.resize(self.prev_full, (w, h), interpolation=cv2.INTER_AREA)
         if (k < 1).any():
             self.clamped_frames += 1
             kf = k if k.shape == frame_bgr.shape[:2] else cv2.resize(k, (w, h), interpolation=cv2.INTER_NEAREST)

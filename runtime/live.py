@@ -46,32 +46,19 @@ def resolve(opts: LiveOptions) -> ShowConfig:
     show = load_show(Path(opts.show)) if opts.show else ShowConfig()
     if opts.model or not show.play:
         show.play = [PlayItem(model=str(opts.model or DEFAULT_MODEL), seconds=1e9)]
-    c, i, d, o = show.capture, show.inference, show.display, show.output
-    if opts.source is not None:
-        c.source = opts.source
-    if opts.loop is not None:
-        c.loop = opts.loop
-    if opts.pace_fps is not None:
-        c.pace_fps = opts.pace_fps
-    if opts.threads is not None:
-        i.threads = opts.threads
-    if opts.workers is not None:
-        i.workers = opts.workers
-    if opts.resolution:
-        i.resolution = opts.resolution
-        i.__post_init__()
-    if opts.no_governor:
-        i.governor = False
-    if opts.fullscreen is not None:
-        d.fullscreen = opts.fullscreen
-    if opts.headless:
-        d.window = False
-    if opts.output is not None:
-        o.record = opts.output
-    for name in ("snapshot_dir", "log_dir", "heartbeat"):
-        v = getattr(opts, name)
-        if v is not None:
-            setattr(o, name, v)
+    def given(**kw) -> dict:  # the flags the operator set
+        return {k: v for k, v in kw.items() if v is not None}
+
+    # dataclasses.replace builds each section anew, so a flag is validated like the show file
+    show.capture = dataclasses.replace(show.capture, **given(
+        source=opts.source, loop=opts.loop, pace_fps=opts.pace_fps))
+    show.inference = dataclasses.replace(show.inference, **given(
+        threads=opts.threads, workers=opts.workers, resolution=opts.resolution or None,
+        governor=False if opts.no_governor else None))
+    show.display = dataclasses.replace(show.display, **given(
+        fullscreen=opts.fullscreen, window=False if opts.headless else None))
+    show.output = dataclasses.replace(show.output, **given(
+        record=opts.output, snapshot_dir=opts.snapshot_dir, log_dir=opts.log_dir, heartbeat=opts.heartbeat))
     return show
 
 

@@ -13,7 +13,7 @@ class Progress:
         self.stream, self.min_interval_s = stream, min_interval_s
         self.postfix = ""
         self.drawn = -1
-        if not getattr(stream, "isatty", lambda: False)():
+        if not getattr(stream, "isatty", lambda: False)() and min_interval_s > 0:
             self.min_interval_s = max(min_interval_s, 15.0)  # logs get a line per 15 s
 
     def update(self, n: int = 1, postfix: str | None = None) -> None:
@@ -33,9 +33,10 @@ class Progress:
         frac = self.n / max(self.total, 1)
         bar = "#" * int(24 * frac) + "-" * (24 - int(24 * frac))
         eta = _fmt(left) if left != float("inf") else "?"
-        line = f"\r{self.desc} [{bar}] {self.n}/{self.total} {rate:.2f}/s ETA {eta} {self.postfix}"
+        line = f"{self.desc} [{bar}] {self.n}/{self.total} {rate:.2f}/s ETA {eta} {self.postfix}"
         tty = getattr(self.stream, "isatty", lambda: False)()
-        self.stream.write(line if tty else line.lstrip("\r") + "\n")
+        # a terminal redraws one line (erasing what a longer previous text left); a log gets lines
+        self.stream.write(f"\r{line}\x1b[K" if tty else line + "\n")
         self.stream.flush()
 
     def close(self) -> None:

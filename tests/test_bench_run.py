@@ -62,6 +62,20 @@ def test_tiny_bench_without_torch(candidates, teacher_onnx, tmp_path):
     assert len(rows) == 2
     for f in ("report.md", "pareto.png", "samples.png"):
         assert (out / f).stat().st_size > 1000
+    # no absolute paths: they are relative to the report folder, and pick turns them back
+    for f in ("report.md", "report.csv", "report.json"):
+        assert str(tmp_path) not in (out / f).read_text(), f
+    paths = [rep["teacher"]] + [m["path"] for m in rep["models"]] + [h["path"] for h in rep["held_out"]]
+    assert not [p for p in paths if Path(p).is_absolute()]
+    from limner.bench.pick import load_report, model_path
+    rep2 = load_report(out)
+    assert Path(model_path(rep2, rep2["models"][1])).resolve() == (candidates / "tiny" / "tiny.onnx").resolve()
+    # the style scores come from the trained trunk when its weights are here, else say why not
+    sf = rep["style_features"]
+    if "source" in sf:
+        assert 0 < tiny["style"]["style_share"]["mean"] and 0 < tiny["style"]["content_similarity"]["mean"] <= 1
+    else:
+        assert sf["unavailable"] and tiny["style"] is None
 
 
 def test_bench_refuses_held_out_images_a_model_saw(candidates, teacher_onnx, tmp_path):

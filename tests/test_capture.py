@@ -25,3 +25,18 @@ def test_capture_rejects_bad_counts(tmp_path):
     r = subprocess.run([PY, "-m", "limner.runtime.cli", "capture", "--source", "demo", "--frames", "0",
                         "-o", str(tmp_path / "x")], capture_output=True, text=True, timeout=120)
     assert r.returncode == 1 and "--frames 0" in r.stderr
+
+
+def test_capture_from_an_unreadable_source_leaves_nothing_and_no_ffmpeg_noise(tmp_path):
+    """An empty .mp4 (FFmpeg prints 'moov atom not found' on its own) and a camera that does
+    not exist: one Limner line, exit 1, no folder left behind."""
+    empty = tmp_path / "empty.mp4"
+    empty.write_bytes(b"")
+    for source in (str(empty), "/dev/video97"):
+        out = tmp_path / "never"
+        r = subprocess.run([PY, "-m", "limner.runtime.cli", "capture", "--source", source, "--frames", "3",
+                            "-o", str(out)], capture_output=True, text=True, timeout=120)
+        assert r.returncode == 1, r.stderr
+        lines = [ln for ln in r.stderr.splitlines() if ln.strip()]
+        assert len(lines) == 1 and lines[0].startswith("limner capture: error:"), r.stderr
+        assert not out.exists()

@@ -12,6 +12,7 @@ import pytest
 import torch
 
 from limner.bench.metrics import ms_ssim
+from limner.compress import checkpoint as ck
 from limner.compress.layers import FrameFiLM, Residual
 from limner.compress.prune import _spaces, conv_weight_count, prune, prune_to
 from limner.compress.registry import build
@@ -438,3 +439,19 @@ def test_training_device_is_checked_before_any_work():
     assert train_device("auto").type == ("cuda" if n else "cpu")
     with pytest.raises(CompressError, match=f"device='cuda:{n}'"):
         train_device(f"cuda:{n}")
+
+
+@pytest.mark.parametrize("case", ["missing teacher", "not a teacher", "no content", "wrong suffix"])
+def test_bad_inputs_leave_no_output_folder(case, teacher_onnx, tmp_path):
+    """A bad teacher or content is refused by name before OUT (recipe.toml, work/) is made."""
+    student = tmp_path / "s.pt"
+    ck.save(ck.from_model(build("student", width=0.25, blocks=1), {}), student)
+    teacher = {"missing teacher": tmp_path / "none.pt", "not a teacher": student,
+               "no content": teacher_onnx, "wrong suffix": tmp_path / "t.txt"}[case]
+    content = [str(tmp_path / "nothing-here")] if case == "no content" else PHOTOS
+    out = tmp_path / "out"
+    r = subprocess.run([PY, "-m", "limner.runtime.cli", "compress", str(teacher), "--content", *content,
+                        "-o", str(out)], capture_output=True, text=True, timeout=300)
+    assert r.returncode == 1, r.stderr
+    assert "Traceback" not in r.stderr and r.stderr.strip().startswith("limner compress: error:")
+    assert not out.exists()

@@ -98,3 +98,24 @@ def test_output_is_bgr_in_bgr_out(tmp_path):
     model = load_model(export(tmp_path / "n.pt", tmp_path / "n.onnx"), threads=1)
     y = model.run(np.zeros((16, 16, 3), np.uint8))
     assert tuple(int(v) for v in y[5, 5]) == (20, 100, 200)  # BGR order out
+
+
+class _Arbitrary:
+    """A class of this test module: unpickling it means importing and running module code."""
+
+
+def test_a_code_carrying_pickle_is_refused_without_advice_to_run_it(tmp_path):
+    """torch.load(weights_only=True) refuses pickles of arbitrary objects (PyTorch docs,
+    torch.load); its own message advises weights_only=False, which would run the file's code.
+    Limner's message must not pass that advice on."""
+    from limner.compress.checkpoint import CheckpointError, load
+
+    p = tmp_path / "evil.pt"
+    torch.save({"limner_checkpoint": 1, "x": _Arbitrary()}, p)  # an object, not plain data
+    with pytest.raises(CheckpointError) as e:
+        load(p)
+    msg = str(e.value)
+    assert "weights_only" not in msg and "could run code" in msg
+    (tmp_path / "text.pt").write_text("hello")
+    with pytest.raises(CheckpointError, match="not a readable Limner checkpoint"):
+        load(tmp_path / "text.pt")

@@ -126,3 +126,20 @@ def test_clamped_blend_is_a_linear_light_mix():
     got = blend_linear(a, b, k)
     assert np.abs(got.astype(int) - want).max() <= 1
     assert (got[:4] == a[:4]).all() and (got[4:8] == b[4:8]).all()
+
+
+def test_resolution_step_during_a_clamped_strobe_keeps_limiting():
+    """The governor steps 480x264 -> 320x176 (both analysed at 160x88) mid-strobe: the
+    limiter goes on (it used to crash blending frames of two sizes) and the whole run still
+    stays within three flashes a second by the independent WCAG count above."""
+    big = [np.full((264, 480, 3), v, np.uint8) for v in (255, 0)]
+    small = [np.full((176, 320, 3), v, np.uint8) for v in (255, 0)]
+    lim = FlashLimiter(19.0)
+    shown = []
+    for i in range(120):
+        src = big if i < 11 or 60 <= i < 80 else small
+        out = lim(src[i % 2], i / FPS)
+        assert out.shape == src[0].shape
+        shown.append(np.full((8, 8, 3), out.mean(axis=(0, 1)), np.float64).round().astype(np.uint8))
+    assert lim.clamped_frames > 0
+    assert _general(shown) <= 3

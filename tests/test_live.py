@@ -191,3 +191,20 @@ def test_sigterm_finalises_the_recording(tmp_path, teacher_onnx):
         n += 1
     assert n >= 1                                   # a finished, readable file
     assert not list(tmp_path.glob(".*partial*"))    # nothing half-written left behind
+
+
+@pytest.mark.parametrize("flag", ["--threads", "--workers"])
+def test_negative_thread_or_worker_count_is_refused_by_name(flag, cli_env):
+    """It used to process nothing, never end, and exit 0 on SIGINT."""
+    r = subprocess.run([PY, "-m", "limner.runtime.cli", "live", "--source", "demo", "--headless",
+                        "--frames", "3", flag, "-1"], capture_output=True, text=True, timeout=60, env=cli_env)
+    assert r.returncode == 1
+    assert f"{flag[2:]}=-1" in r.stderr and "Traceback" not in r.stderr
+
+
+def test_os_errors_read_as_one_line_without_errno():
+    from limner.runtime.cli import _one_line
+
+    e = FileExistsError(17, "File exists", "out/x")
+    assert _one_line(e) == "out/x: file exists"
+    assert _one_line(ValueError("bad value\nmore")) == "bad value"

@@ -111,3 +111,15 @@ def test_init_starts_from_another_teacher_and_refuses_other_nets(tmp_path):
         _warm_start(build("teacher"), tmp_path / "s.pt")
     with pytest.raises(TrainError, match="no such checkpoint"):
         _warm_start(build("teacher"), tmp_path / "none.pt")
+
+
+def test_unreadable_content_is_reported_not_skipped_silently(tmp_path, capsys):
+    d = tmp_path / "content"
+    d.mkdir()
+    (d / "notes.png").write_text("not an image")
+    good = open(PHOTO, "rb").read()
+    (d / "cut.jpg").write_bytes(good[: len(good) // 50])  # a truncated JPEG
+    (d / "ok.jpg").write_bytes(good)
+    train("ember", [str(d)], tmp_path / "r", _cfg(steps=1), export_onnx=False)
+    out = capsys.readouterr().out
+    assert "skipped" in out and "notes.png" in out
