@@ -16,6 +16,9 @@ from .session import make_session
 from .hashing import file_sha256  # noqa: F401  (re-exported)
 
 
+MIN_SIDE = 16  # below this the nets' reflection pads and strides run out of pixels
+
+
 class ModelError(Exception):
     pass
 
@@ -33,7 +36,12 @@ class Model:
         return self.meta.size_multiple
 
     def run(self, frame_bgr: np.ndarray) -> np.ndarray:
-        """(H, W, 3) uint8 BGR, H and W multiples of size_multiple -> same shape uint8 BGR."""
+        """(H, W, 3) uint8 BGR, any size from MIN_SIDE up -> the same shape, uint8 BGR (models
+        written by this Limner pad to their size multiple inside the graph and crop back)."""
+        h, w = frame_bgr.shape[:2]
+        if h < MIN_SIDE or w < MIN_SIDE:
+            raise ModelError(f"{self.path.name}: a {w}x{h} frame is too small; sides of at least "
+                             f"{MIN_SIDE} px are needed")
         return self.session.run([self.output_name], {self.input_name: frame_bgr[None]})[0][0]
 
     def sha256(self) -> str:

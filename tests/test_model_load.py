@@ -78,3 +78,14 @@ def test_bad_models_are_rejected_with_one_clear_line(case, pattern, tmp_path, te
     assert "Traceback" not in r.stderr
     lines = [l for l in r.stderr.splitlines() if l.strip()]
     assert len(lines) == 1 and str(path) in lines[0], r.stderr
+
+
+def test_too_small_a_frame_is_refused_by_size(teacher_onnx):
+    import numpy as np
+
+    from limner.runtime.model import MIN_SIDE, ModelError, load_model
+
+    m = load_model(teacher_onnx, threads=1)
+    with pytest.raises(ModelError, match=f"a 40x{MIN_SIDE - 1} frame is too small"):
+        m.run(np.zeros((MIN_SIDE - 1, 40, 3), np.uint8))
+    assert m.run(np.zeros((MIN_SIDE, 17, 3), np.uint8)).shape == (MIN_SIDE, 17, 3)
