@@ -180,10 +180,10 @@ def _run_bench(a: argparse.Namespace) -> int:
     from limner.bench.run import bench
     from limner.runtime import config as cfgmod
 
-    cfg = cfgmod.load(BenchConfig, a.config, {"resolutions": a.resolutions, "threads": a.threads,
-                                              "frames": a.frames})
-    if a.resolutions and cfg.plot_resolution not in cfg.resolutions:
-        cfg.plot_resolution = cfg.resolutions[min(1, len(cfg.resolutions) - 1)]
+    overrides = {"resolutions": a.resolutions, "threads": a.threads, "frames": a.frames}
+    if a.resolutions:  # the plot shows one of the resolutions asked for: 640x360 if there, else the first
+        overrides["plot_resolution"] = "640x360" if "640x360" in a.resolutions else a.resolutions[0]
+    cfg = cfgmod.load(BenchConfig, a.config, overrides)
     bench(a.models, a.teacher, a.content, a.out, cfg, clip=a.clip, style=a.style)
     print(f"report: {a.out / 'report.md'} (json, csv, pareto.png, samples.png beside it)")
     return 0

@@ -11,6 +11,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from .bundled import DEFAULT_MODEL
+from .model import load_model
 from .pipeline import Live, LiveStats
 from .settings import PlayItem, ShowConfig, load_show
 from .sinks import Window, display_available
@@ -64,6 +65,8 @@ def resolve(opts: LiveOptions) -> ShowConfig:
 
 def run_live(opts: LiveOptions) -> LiveStats:
     show = resolve(opts)
+    for item in show.play:  # every model is checked before anything starts or is printed
+        load_model(item.model, threads=1)
     setup_logging(show.output.log_dir, show.output.log_max_bytes, show.output.log_backups)
     c = show.capture
     spec = c.source or None

@@ -99,3 +99,14 @@ def test_peak_rss_is_the_model_process_own(candidates):
     r = measure_in_subprocess(str(candidates / "tiny" / "tiny.onnx"), HELD_OUT[:1], [(64, 64)], [1], 0, 1)
     del ballast
     assert 20 < r["peak_rss_mb"] < parent - 300
+
+
+def test_resolutions_flag_without_640x360_sets_the_plot_resolution(candidates, teacher_onnx, tmp_path):
+    """`--resolutions 320x180` used to fail: "plot_resolution='640x360' is not among resolutions"."""
+    cfg = tmp_path / "c.toml"
+    cfg.write_text("warmup = 1\nframes = 3\nclip_frames = 3\nquality_resolution = \"320x192\"\n")
+    out = tmp_path / "rep"
+    r = _bench([str(candidates / "tiny"), "--teacher", str(teacher_onnx), "--content", *HELD_OUT,
+                "--config", str(cfg), "--resolutions", "320x180", "-o", str(out)], tmp_path)
+    assert r.returncode == 0, r.stderr
+    assert json.loads((out / "report.json").read_text())["config"]["plot_resolution"] == "320x180"

@@ -208,3 +208,11 @@ def test_os_errors_read_as_one_line_without_errno():
     e = FileExistsError(17, "File exists", "out/x")
     assert _one_line(e) == "out/x: file exists"
     assert _one_line(ValueError("bad value\nmore")) == "bad value"
+
+
+def test_a_missing_model_is_named_before_any_status_line(cli_env, tmp_path):
+    r = subprocess.run([PY, "-m", "limner.runtime.cli", "live", "--model", str(tmp_path / "nope.onnx"),
+                        "--source", "demo", "--headless", "--frames", "2", "--output", str(tmp_path / "o.mp4")],
+                       capture_output=True, text=True, timeout=60, env=cli_env)
+    assert r.returncode == 1 and "nope.onnx: no such model file" in r.stderr
+    assert "playing" not in r.stdout and not (tmp_path / "o.mp4").exists()
