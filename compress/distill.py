@@ -25,6 +25,7 @@ from . import checkpoint as ckptmod
 from . import frame_norm
 from .checkpoint import atomic_write_bytes
 from .content import ContentSet, sample_batch, sample_frame
+from .distributed import World
 from .losses import gram
 from .lossnet import STYLE_LAYERS
 from .recipe import LossWeights, Recipe
@@ -103,8 +104,11 @@ def _t(batch: np.ndarray) -> torch.Tensor:
 
 
 class DistillLoss:
-    def __init__(self, weights: LossWeights, lossnet: nn.Module) -> None:
-        self.w, self.net = weights, lossnet
+    """Every term is a mean over the batch (this rank's share under torchrun); the start
+    values are averaged over the ranks, so the ranks' mean loss is the whole batch's."""
+
+    def __init__(self, weights: LossWeights, lossnet: nn.Module, world: World = World()) -> None:
+        self.w, self.net, self.world = weights, lossnet, world
         self.scale: dict[str, float] = {}
 
     def terms(self, student: nn.Module, x: torch.Tensor, t: torch.Tensor,
@@ -112,7 +116,8 @@ class DistillLoss:
         # x: input, t: teacher output, noise: same shape; all (B, 3, H, W) in [0, 1]
         # frame: (B, 3, Hf, Wf) the whole frames x was cut from (students with frame context)
         w = self.w
-        stats = student.frame_stats(frame) if frame is not None else None  # once per batch
+        base = getattr(student, "module", student)  # the net itself under DDP
+        stats = base.frame_stats(frame) if frame is not None else None  # once per batch
         def run(inp: torch.Tensor) -> torch.Tensor:
             return student(inp) if stats is None else student(inp, stats=stats)
         y = run(x)
@@ -142,21 +147,22 @@ class DistillLoss:
         return out
 
     def total(self, terms: dict[str, torch.Tensor]) -> tuple[torch.Tensor, dict[str, float]]:
-        for k, v in terms.items():  # first batch (or a term added to a resumed run)
-            if k not in self.scale:
-                self.scale[k] = float(v.detach()) if self.w.normalize and float(v.detach()) > 0 else 1.0
+        new = {k: float(v.detach()) for k, v in terms.items() if k not in self.scale}
+        for k, v in self.world.mean(new).items():  # first batch (or a term added to a resumed run)
+            self.scale[k] = v if self.w.normalize and v > 0 else 1.0
         total = sum(getattr(self.w, k) * v / self.scale[k] for k, v in terms.items())
         return total, {k: float(v.detach()) for k, v in terms.items()} | {"total": float(total.detach())}
 
 
 def distill(net: nn.Module, cache: dict[str, np.ndarray], recipe: Recipe, steps: int, lr: float,
             lossnet: nn.Module, workdir: Path, desc: str, meta: dict,
-            device: torch.device = torch.device("cpu")) -> tuple[nn.Module, dict]:
+            device: torch.device = torch.device("cpu"), world: World = World()) -> tuple[nn.Module, dict]:
     """Train `net` on the cached pairs on `device`; resumable from workdir/checkpoint.pt.
-    Returns the trained net on the CPU (export reads its weights there)."""
+    Under torchrun each rank takes its share of every batch and rank 0 writes the
+    checkpoints. Returns the trained net on the CPU (export reads its weights there)."""
     workdir = Path(workdir)
     ckpt_path = workdir / "checkpoint.pt"
-    loss = DistillLoss(recipe.loss, lossnet.to(device))
+    loss = DistillLoss(recipe.loss, lossnet.to(device), world)
     net = net.to(device)
     opt = torch.optim.Adam(net.parameters(), lr=lr)
     step, seconds_before = 0, 0.0
@@ -172,11 +178,15 @@ def distill(net: nn.Module, cache: dict[str, np.ndarray], recipe: Recipe, steps:
     def lr_at(k: int) -> float:  # cosine decay to 5% (common practice, no source); resumable
         return lr * (0.05 + 0.95 * 0.5 * (1 + math.cos(math.pi * min(k, steps) / steps)))
     n = cache["inputs"].shape[0]
-    bar = Progress(steps, desc, start=step)
+    model = world.wrap(net, device)  # DDP averages the ranks' gradients
+    share = world.share(recipe.batch)
+    bar = Progress(steps, desc, start=step) if world.main else None
     t0 = time.monotonic()
     logs: dict[str, float] = {}
 
     def save(s: int) -> None:
+        if not world.main:
+            return
         ckptmod.save(ckptmod.from_model(net, meta, {
             "step": s, "optimizer": opt.state_dict(), "loss_scale": dict(loss.scale),
             "seconds": seconds_before + time.monotonic() - t0, "last": dict(logs)}), ckpt_path)
@@ -195,32 +205,37 @@ def distill(net: nn.Module, cache: dict[str, np.ndarray], recipe: Recipe, steps:
                 idx = np.flatnonzero(cache["frame_index"] == f)[rng.integers(0, per, recipe.batch)]
             else:
                 idx = rng.integers(0, n, recipe.batch)
+            c = cache["inputs"].shape[1]  # the whole batch's noise, as one process draws it
+            noise = rng.normal(0, recipe.loss.noise_sigma / 255.0, (recipe.batch, 3, c, c)).astype(np.float32)
+            idx, noise = idx[share], torch.from_numpy(noise[share])
             x, t = _t(cache["inputs"][idx]), _t(cache["targets"][idx])
-            noise = torch.from_numpy(rng.normal(0, recipe.loss.noise_sigma / 255.0, x.shape).astype(np.float32))
             x, t, noise = x.to(device), t.to(device), noise.to(device)
             frame = _t(cache["frames"][cache["frame_index"][idx]]).to(device) if with_frames else None
             if norm_frames:
                 stats = frame_norm.frame_stats(net, _t(cache["frames"][f:f + 1]).to(device))
                 with frame_norm.use(net, stats):
-                    total, logs = loss.total(loss.terms(net, x, t, noise))
+                    total, logs = loss.total(loss.terms(model, x, t, noise))
             else:
-                total, logs = loss.total(loss.terms(net, x, t, noise, frame))
+                total, logs = loss.total(loss.terms(model, x, t, noise, frame))
             for g in opt.param_groups:
                 g["lr"] = lr_at(step)
             opt.zero_grad(set_to_none=True)
             total.backward()
             opt.step()
             step += 1
-            bar.update(1, " ".join(f"{k} {v:.3g}" for k, v in logs.items() if k in ("total", "pixel_l1", "ms_ssim")))
+            if bar:
+                bar.update(1, " ".join(f"{k} {v:.3g}" for k, v in logs.items() if k in ("total", "pixel_l1", "ms_ssim")))
             if step % recipe.checkpoint_every == 0 or step == steps:
                 save(step)
     except KeyboardInterrupt:
         save(step)
-        bar.close()
+        if bar:
+            bar.close()
         net.cpu()
         lossnet.cpu()
         raise
-    bar.close()
+    if bar:
+        bar.close()
     net.cpu().eval()
     lossnet.cpu()
     return net, {"steps": steps, "seconds": seconds_before + time.monotonic() - t0, "final_loss": logs,

@@ -236,8 +236,12 @@ def _nchw_to_uint8(g: _Graph, x: str, r: int, crop_to: str | None) -> None:
         g.nodes.append(helper.make_node("Transpose", [x], ["stylized"], name="to_nhwc", perm=[0, 2, 3, 1]))
         return
     x = g.op("Transpose", [x], "to_nhwc", perm=[0, 2, 3, 1])
-    starts = g.const("starts", np.zeros(4, np.int64))
-    g.nodes.append(helper.make_node("Slice", [x, starts, crop_to], ["stylized"], name="crop_back"))
+    # crop rows and columns only, so shape inference keeps the 3 channels of the output
+    axes = g.const("hw_axes", np.array([1, 2], np.int64))
+    hw = g.op("Slice", [crop_to, g.const("one", np.array([1], np.int64)),
+                        g.const("three", np.array([3], np.int64))], "in_hw")
+    starts = g.const("starts", np.zeros(2, np.int64))
+    g.nodes.append(helper.make_node("Slice", [x, starts, hw, axes], ["stylized"], name="crop_back"))
 
 
 def to_onnx(net: nn.Module, props: dict[str, str], graph_name: str = "limner") -> onnx.ModelProto:

@@ -23,6 +23,7 @@ from . import checkpoint as ckptmod
 from .checkpoint import atomic_write_bytes
 from .content import ContentItem, ContentSet, load_content
 from .distill import build_cache, distill
+from .distributed import World, device_for, init, train_device
 from .export import export, export_model
 from .layers import Residual
 from .lossnet import build_loss_net
@@ -57,10 +58,12 @@ def split_by_source(data: ContentSet, recipe: Recipe) -> dict[str, ContentSet]:
 
 
 class _Log:
-    def __init__(self, path: Path) -> None:
-        self.path = path
+    def __init__(self, path: Path, enabled: bool = True) -> None:
+        self.path, self.enabled = path, enabled
 
     def __call__(self, msg: str) -> None:
+        if not self.enabled:  # ranks other than 0 under torchrun
+            return
         print(msg, flush=True)
         with self.path.open("a") as f:
             f.write(time.strftime("%Y-%m-%d %H:%M:%S ") + msg + "\n")
@@ -140,19 +143,6 @@ def _init_from(path: str, fresh: torch.nn.Module, name: str) -> torch.nn.Module:
     return fresh.train()
 
 
-def train_device(name: str) -> torch.device:
-    """The recipe's `device`: "auto" takes CUDA when torch sees it, else the CPU."""
-    if name == "auto":
-        return torch.device("cuda" if torch.cuda.is_available() else "cpu")
-    if name.startswith("cuda"):
-        n = torch.cuda.device_count() if torch.cuda.is_available() else 0
-        index = int(name.split(":")[1]) if ":" in name else 0
-        if index >= n:
-            raise CompressError(f"device={name!r}: torch {torch.__version__} sees {n} CUDA device(s) here; "
-                                "use device = \"cpu\" or \"auto\"")
-    return torch.device(name)
-
-
 def _int8_probe(types: str, log: Callable[[str], None]) -> dict:
     """A short fp32-against-int8 conv timing on this CPU (bench/int8_probe.py): says up front
     when int8 candidates cannot be expected to run faster than their parents here."""
@@ -167,9 +157,11 @@ def _int8_probe(types: str, log: Callable[[str], None]) -> dict:
 
 
 def compress(teacher: str, content: list[str], recipe: Recipe, out: Path,
-             calibration: list[str] | None = None) -> dict:
+             calibration: list[str] | None = None, world: World | None = None) -> dict:
     """`calibration`: content kept for int8 calibration only; when given, `content` is all
-    distillation (no fractions are split off it)."""
+    distillation (no fractions are split off it). Under torchrun every rank distills its
+    share of each batch; rank 0 alone writes (teacher export, cache, models, manifest, log)
+    and quantizes, and the others wait for it where they read what it wrote."""
     out = Path(out)
     # inputs are checked before anything is written: a bad teacher or content leaves no OUT
     tpath = Path(teacher)
@@ -186,7 +178,9 @@ def compress(teacher: str, content: list[str], recipe: Recipe, out: Path,
         tmodel = load_model(tpath)
         if tmodel.meta.role != "teacher":
             raise CompressError(f"{teacher}: role is {tmodel.meta.role!r}, expected a teacher")
-    device = train_device(recipe.device)
+    world = world or init(recipe.device)
+    main = world.main
+    device = device_for(world, train_device(recipe.device))
     data = load_content(content, min_items=1 if calibration else 3, min_side=recipe.crop)
     if calibration:
         calib = load_content(calibration, min_items=1, min_side=recipe.crop)
@@ -197,17 +191,19 @@ def compress(teacher: str, content: list[str], recipe: Recipe, out: Path,
     else:
         splits = split_by_source(data, recipe)
 
-    out.mkdir(parents=True, exist_ok=True)
-    (out / "work").mkdir(exist_ok=True)
-    log = _Log(out / "compress.log")
+    log = _Log(out / "compress.log", main)
+    manifest_path = out / "manifest.json"
     if recipe.threads:
         torch.set_num_threads(recipe.threads)
-    (out / "recipe.toml").write_text(cfgmod.dumps_toml(recipe))
-    manifest_path = out / "manifest.json"
+    teacher_onnx = out / "work" / "teacher.onnx" if tpath.suffix == ".pt" else tpath
+    if main:
+        out.mkdir(parents=True, exist_ok=True)
+        (out / "work").mkdir(exist_ok=True)
+        (out / "recipe.toml").write_text(cfgmod.dumps_toml(recipe) + f"# world size: {world.size}\n")
+        if tpath.suffix == ".pt":  # a checkpoint is exported first; an ONNX file is used as it is
+            export(tpath, teacher_onnx, name="teacher")
+    world.barrier()
     manifest = json.loads(manifest_path.read_text()) if manifest_path.exists() else {"candidates": {}}
-
-    # teacher: a checkpoint is exported first; an ONNX file is used as it is
-    teacher_onnx = export(tpath, out / "work" / "teacher.onnx", name="teacher") if tpath.suffix == ".pt" else tpath
     tmodel = load_model(teacher_onnx)
     teacher_sha = file_sha256(teacher_onnx)
     manifest["teacher"] = {"path": str(tpath), "sha256": teacher_sha, "style": tmodel.meta.style}
@@ -218,8 +214,12 @@ def compress(teacher: str, content: list[str], recipe: Recipe, out: Path,
     seen = sorted(set(splits["distillation"].hashes()) | set(tmodel.meta.data_sha256))
     lossnet, source = build_loss_net(recipe.loss_net, Path(recipe.loss_weights) if recipe.loss_weights else None,
                                      recipe.loss_seed)
-    cache = build_cache(tmodel, splits["distillation"], recipe, out / "work" / "cache.npz")
-    _write_json(manifest_path, manifest)
+    if main:  # the teacher's outputs are computed once, by rank 0; the others read its file
+        cache = build_cache(tmodel, splits["distillation"], recipe, out / "work" / "cache.npz")
+        _write_json(manifest_path, manifest)
+    world.barrier()
+    if not main:
+        cache = build_cache(tmodel, splits["distillation"], recipe, out / "work" / "cache.npz")
 
     def base_meta(name: str, role: str, parent: str, entry: dict, loss: LossWeights) -> ModelMeta:
         return ModelMeta(role=role, precision="fp32", style=tmodel.meta.style, size_multiple=1,
@@ -227,6 +227,16 @@ def compress(teacher: str, content: list[str], recipe: Recipe, out: Path,
                          recipe={"entry": entry, "distill_loss": asdict(loss),
                                  "distill_loss_network": source.describe()},
                          data_sha256=seen)
+
+    def finish(name: str, role: str, parent: str, entry: dict, r: Recipe, net: torch.nn.Module,
+               info: dict) -> None:
+        """Rank 0 exports and records the candidate; then every rank reads the manifest."""
+        nonlocal manifest
+        if main:
+            path = export_model(net, base_meta(name, role, parent, entry, r.loss), out / f"{name}.onnx")
+            record(name, path, net, entry, info)
+        world.barrier()
+        manifest = json.loads(manifest_path.read_text())
 
     def record(name: str, path: Path, net: torch.nn.Module, entry: dict, info: dict) -> None:
         manifest["candidates"][name] = {
@@ -253,10 +263,8 @@ def compress(teacher: str, content: list[str], recipe: Recipe, out: Path,
             entry["init_sha256"] = file_sha256(Path(spec.init))
         r = replace(recipe, loss=spec.losses(recipe.loss))
         net, info = distill(net, cache, r, spec.steps, spec.lr, lossnet, out / "work" / spec.name,
-                            f"distill {spec.name}", {"name": spec.name}, device)
-        path = export_model(net, base_meta(spec.name, "student", teacher_sha, entry, r.loss),
-                            out / f"{spec.name}.onnx")
-        record(spec.name, path, net, entry, {"distill": info, "wall_s": time.monotonic() - t0})
+                            f"distill {spec.name}", {"name": spec.name}, device, world)
+        finish(spec.name, "student", teacher_sha, entry, r, net, {"distill": info, "wall_s": time.monotonic() - t0})
         log(f"{spec.name}: {count_params(net):,} parameters, {count_macs(net, 360, 640) / 1e9:.2f} GMACs "
             f"at 640x360, {info['steps']} steps in {info['seconds'] / 60:.1f} min")
 
@@ -281,18 +289,16 @@ def compress(teacher: str, content: list[str], recipe: Recipe, out: Path,
         entry = {**asdict(spec), "role": "pruned", "parent": parent["sha256"], "parent_name": spec.parent}
         r = replace(recipe, loss=spec.losses(recipe.loss))
         net, info = distill(net, cache, r, spec.steps, spec.lr, lossnet, work, f"recover {spec.name}",
-                            {"name": spec.name}, device)
-        path = export_model(net, base_meta(spec.name, "pruned", parent["sha256"], entry, r.loss),
-                            out / f"{spec.name}.onnx")
-        record(spec.name, path, net, entry, {"distill": info, "before_pruning": before,
-                                             "wall_s": time.monotonic() - t0})
+                            {"name": spec.name}, device, world)
+        finish(spec.name, "pruned", parent["sha256"], entry, r, net,
+               {"distill": info, "before_pruning": before, "wall_s": time.monotonic() - t0})
         c = manifest["candidates"][spec.name]
         log(f"{spec.name}: pruned {spec.parent} by {1 - c['conv_weights'] / before['conv_weights']:.1%} of conv "
             f"weights (target {spec.ratio:.0%}); parameters {before['parameters']:,} -> {c['parameters']:,}, "
             f"GMACs {before['macs_640x360'] / 1e9:.2f} -> {c['macs_640x360'] / 1e9:.2f}, "
             f"file {before['file_bytes'] / 1e6:.2f} -> {c['file_bytes'] / 1e6:.2f} MB")
 
-    if recipe.int8.enabled:
+    if recipe.int8.enabled and main:  # quantization is one process's work
         from .quantize import quantize, with_props
 
         fp32 = [n for n in manifest["candidates"] if manifest["candidates"][n]["precision"] == "fp32"]

@@ -106,6 +106,12 @@ def quantize(fp32_path: Path, out_path: Path, calib: list[np.ndarray], check: li
         final = tmp / "final.onnx"
         _quantize(pre, final, calib, spec, types, tail + exclude, cache)
         model = onnx.load(str(final))
+    # the pre-processing's shape inference renames the contract's dimensions (after the
+    # in-graph padding it cannot tell the output has 3 channels): declare them as the fp32 file does
+    src = onnx.load(str(fp32_path))
+    for got, ref in ((model.graph.input, src.graph.input), (model.graph.output, src.graph.output)):
+        for g_, r_ in zip(got, ref):
+            g_.type.CopyFrom(r_.type)
     agreement = _agreement(str(fp32_path), model.SerializeToString(), check)
     counts = count_qdq(model)
     share = 1 - sum(macs[n] for n in exclude) / total

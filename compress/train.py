@@ -3,6 +3,7 @@
 Stoppable and resumable: checkpoints every N steps (atomic), `resume=True` continues
 from the last one (also after kill -9), Ctrl-C / SIGTERM save before exiting.
 Deterministic on CPU for a given seed: batch k is drawn from rng(seed, k).
+Under torchrun each rank takes its share of that batch (distributed.py); rank 0 writes.
 """
 from __future__ import annotations
 
@@ -20,6 +21,7 @@ import torch
 from limner.runtime import config as cfgmod
 
 from . import checkpoint as ckptmod
+from .distributed import World, device_for, init, train_device
 from .content import ContentSet, load_content, sample_batch
 from .losses import content_loss, gram, style_loss_layer, tv_loss
 from .lossnet import CONTENT_LAYER, SOURCES, STYLE_LAYERS, build_loss_net
@@ -49,6 +51,7 @@ class TrainConfig:
     preview_every: int = 250
     threads: int = 0                # 0: torch's default
     init: str = ""                  # a teacher checkpoint to start from (e.g. another style's teacher)
+    device: str = "cpu"             # cpu, cuda, cuda:N or auto (CUDA when torch sees it)
 
     def __post_init__(self) -> None:
         if self.size < 32 or self.size % 4:
@@ -69,6 +72,10 @@ class TrainError(Exception):
     pass
 
 
+class TrainStopped(Exception):
+    """Ctrl-C or SIGTERM: the checkpoint is saved; the message says how to continue."""
+
+
 def _to_tensor(batch_rgb: np.ndarray) -> torch.Tensor:
     # (B, H, W, 3) uint8 RGB -> (B, 3, H, W) float in [0, 1]
     return torch.from_numpy(np.ascontiguousarray(batch_rgb)).permute(0, 3, 1, 2).float() / 255.0
@@ -77,11 +84,16 @@ def _to_tensor(batch_rgb: np.ndarray) -> torch.Tensor:
 class PerceptualLoss:
     """Content + style + TV terms with optional start-value normalisation."""
 
-    def __init__(self, cfg: TrainConfig, lossnet: torch.nn.Module, style_rgb: np.ndarray) -> None:
-        self.cfg, self.net = cfg, lossnet
+    def __init__(self, cfg: TrainConfig, lossnet: torch.nn.Module, style_rgb: np.ndarray,
+                 world: World = World()) -> None:
+        """Under several ranks each term is a mean over this rank's share of the batch; the
+        start values and the content TV are averaged over the ranks, so the mean of the
+        ranks' losses is the one-process loss of the whole batch."""
+        self.cfg, self.net, self.world = cfg, lossnet, world
         s = cv2.resize(style_rgb, (cfg.style_size, cfg.style_size), interpolation=cv2.INTER_AREA)
+        device = next(lossnet.parameters()).device
         with torch.no_grad():
-            feats = self.net(_to_tensor(s[None]))
+            feats = self.net(_to_tensor(s[None]).to(device))
         self.style_grams = {k: gram(feats[k]) for k in STYLE_LAYERS}
         self.scale: dict[str, float] = {}
 
@@ -91,8 +103,9 @@ class PerceptualLoss:
         with torch.no_grad():
             fx = self.net(x, upto=self.cfg.content_layer)
         # TV relative to the content's own TV: scale-free, so it is not start-normalised
+        tv_x = self.world.mean({"tv": float(tv_loss(x))})["tv"]  # the whole batch's content TV
         t = {"content": content_loss(fy[self.cfg.content_layer], fx[self.cfg.content_layer]),
-             "tv": tv_loss(y) / tv_loss(x).clamp_min(1e-8)}
+             "tv": tv_loss(y) / max(tv_x, 1e-8)}
         for k in STYLE_LAYERS:
             t[f"style_{k}"] = style_loss_layer(fy[k], self.style_grams[k])
         return t
@@ -100,8 +113,9 @@ class PerceptualLoss:
     def total(self, t: dict[str, torch.Tensor]) -> tuple[torch.Tensor, dict[str, float]]:
         c = self.cfg
         if not self.scale:
-            self.scale = {k: (float(v.detach()) if c.normalize_losses and k != "tv"
-                              and float(v.detach()) > 0 else 1.0) for k, v in t.items()}
+            start = self.world.mean({k: float(v.detach()) for k, v in t.items()})
+            self.scale = {k: (v if c.normalize_losses and k != "tv" and v > 0 else 1.0)
+                          for k, v in start.items()}
         n = {k: v / self.scale[k] for k, v in t.items()}
         wsum = sum(c.style_layer_weights)
         style = sum(w * n[f"style_{k}"] for w, k in zip(c.style_layer_weights, STYLE_LAYERS)) / wsum
@@ -111,7 +125,8 @@ class PerceptualLoss:
         return total, logs
 
 
-def _preview(model: torch.nn.Module, images: list[np.ndarray], path: Path, width: int = 480) -> None:
+def _preview(model: torch.nn.Module, images: list[np.ndarray], path: Path,
+             device: torch.device = torch.device("cpu"), width: int = 480) -> None:
     """Each whole image at `width` px (input above, output below), side by side."""
     cols = []
     for img in images:
@@ -119,7 +134,7 @@ def _preview(model: torch.nn.Module, images: list[np.ndarray], path: Path, width
         tw, th = width, max(4, round(h * width / w / 4) * 4)
         small = cv2.resize(img, (tw, th), interpolation=cv2.INTER_AREA)
         with torch.no_grad():
-            out = model(_to_tensor(small[None, :, :, ::-1].copy()))[0].permute(1, 2, 0).numpy()
+            out = model(_to_tensor(small[None, :, :, ::-1].copy()).to(device))[0].permute(1, 2, 0).cpu().numpy()
         styled = (out[:, :, ::-1] * 255 + 0.5).clip(0, 255).astype(np.uint8)
         cols.append(np.concatenate([small, styled], 0))
     hgt = max(c.shape[0] for c in cols)
@@ -143,6 +158,10 @@ class _Stop(Exception):
     pass
 
 
+def _on_term(signum, frame):  # SIGTERM behaves like Ctrl-C
+    raise _Stop()
+
+
 def _warm_start(model: torch.nn.Module, path: Path) -> str:
     """Load a teacher checkpoint's weights into `model` (same architecture); returns its sha256."""
     from limner.runtime.hashing import file_sha256
@@ -162,113 +181,153 @@ def _warm_start(model: torch.nn.Module, path: Path) -> str:
 
 def train(style: str, content: list[str], out: Path, cfg: TrainConfig, *,
           resume: bool = False, preview_content: list[str] | None = None,
-          export_onnx: bool = True) -> Path:
+          export_onnx: bool = True, world: World | None = None) -> Path:
     """Train a teacher for `style` on `content`; returns the checkpoint path."""
     out = Path(out)
     ckpt_path = out / "checkpoint.pt"
-    start_step, state, seconds_before = 0, None, 0.0
-    if ckpt_path.exists():
-        if not resume:
-            raise TrainError(f"{ckpt_path} exists: pass --resume to continue it, or choose another -o")
-        state = ckptmod.load(ckpt_path)
-        saved = cfgmod.from_dict(TrainConfig, state.meta["config"])
-        for f in fields(TrainConfig):  # a resume keeps the run's settings; steps and threads may change
-            if f.name not in ("steps", "threads") and getattr(cfg, f.name) != getattr(saved, f.name):
-                print(f"resume keeps the saved {f.name} = {getattr(saved, f.name)!r} "
-                      f"(ignoring {getattr(cfg, f.name)!r})", flush=True)
-        saved.steps, saved.threads = cfg.steps, cfg.threads
-        cfg = saved
-        start_step = int(state.train_state["step"])
-        seconds_before = float(state.train_state.get("seconds", 0.0))
-    elif resume:
-        raise TrainError(f"--resume given but {ckpt_path} does not exist")
+    cfg, state = _resolve_resume(cfg, ckpt_path, resume)
+    world = world or init(cfg.device)
+    device = device_for(world, train_device(cfg.device))
     if cfg.threads:
         torch.set_num_threads(cfg.threads)
     torch.manual_seed(cfg.seed)
-
-    style_bgr, style_name = style_image(style)
-    data: ContentSet = load_content(content, min_items=1, min_side=cfg.size // 2)
-    if data.skipped:
-        shown = ", ".join(data.skipped[:3]) + (f" and {len(data.skipped) - 3} more" if len(data.skipped) > 3 else "")
-        print(f"skipped {len(data.skipped)} content file(s) that are unreadable or smaller than "
-              f"{cfg.size // 2} px: {shown}", flush=True)
-    previews = load_content(preview_content).items if preview_content else data.items[:4]
-    lossnet, source = build_loss_net(cfg.loss_net, Path(cfg.loss_weights) if cfg.loss_weights else None,
-                                     cfg.loss_seed)
-    loss = PerceptualLoss(cfg, lossnet, np.ascontiguousarray(style_bgr[:, :, ::-1]))
-
-    model = build("teacher")
-    init_sha = ""
-    if cfg.init and state is None:
-        init_sha = _warm_start(model, Path(cfg.init))
-    opt = torch.optim.Adam(model.parameters(), lr=cfg.lr)
-    if state is not None:
-        model.load_state_dict(state.state_dict)
-        opt.load_state_dict(state.train_state["optimizer"])
-        loss.scale = dict(state.train_state["loss_scale"])
-        _log_rows_upto(out / "losses.csv", start_step)
-    out.mkdir(parents=True, exist_ok=True)
-    (out / "config.toml").write_text(cfgmod.dumps_toml(cfg))
-    meta = {"style": style_name,
-            "style_sha256": hashlib.sha256(style_bgr.tobytes()).hexdigest(),
-            "loss_network": source.describe(),
-            "data_sha256": data.hashes(), "data_sources": data.sources(),
-            "init_sha256": init_sha or (state.meta.get("init_sha256", "") if state is not None else ""),
-            "config": cfgmod.to_jsonable(cfg)}
-    cv2.imwrite(str(out / "style.png"), style_bgr)
-
-    def save(step: int) -> None:
-        ckptmod.save(ckptmod.from_model(model, meta, {"step": step, "optimizer": opt.state_dict(),
-                                                      "loss_scale": dict(loss.scale),
-                                                      "seconds": seconds_before + time.monotonic() - t0}),
-                     ckpt_path)
-
-    def on_term(signum, frame):  # SIGTERM behaves like Ctrl-C
-        raise _Stop()
-
-    old = signal.signal(signal.SIGTERM, on_term)
-    log_new = not (out / "losses.csv").exists()
-    log = (out / "losses.csv").open("a", newline="")
-    writer = csv.writer(log)
-    if log_new:
-        writer.writerow(["step", "total", "content", "style", "tv", "seconds"])
-    if start_step:
-        print(f"resuming {ckpt_path} at step {start_step}", flush=True)
-    bar = Progress(cfg.steps, "train", start=start_step)
-    step = start_step
-    t0 = time.monotonic()
-    model.train()
-    try:
-        while step < cfg.steps:
-            rng = np.random.default_rng([cfg.seed, step])
-            x = _to_tensor(sample_batch(data, rng, cfg.batch, cfg.size))
-            y = model(x)
-            total, logs = loss.total(loss.terms(y, x))
-            opt.zero_grad(set_to_none=True)
-            total.backward()
-            opt.step()
-            step += 1
-            writer.writerow([step] + [f"{logs[k]:.6g}" for k in ("total", "content", "style", "tv")]
-                            + [f"{seconds_before + time.monotonic() - t0:.1f}"])
-            bar.update(1, f"loss {logs['total']:.3f} content {logs['content']:.3f} style {logs['style']:.3f}")
-            if step % cfg.checkpoint_every == 0 or step == cfg.steps:
-                log.flush()
-                save(step)
-            if step % cfg.preview_every == 0 or step == cfg.steps:
-                log.flush()
-                model.eval()
-                _preview(model, [i.image for i in previews], out / "previews" / f"step{step:06d}.png")
-                model.train()
-    except (KeyboardInterrupt, _Stop):
-        log.flush()
-        save(step)
-        print(f"\nstopped at step {step}; checkpoint saved to {ckpt_path} (continue with --resume)")
-        raise SystemExit(130)
-    finally:
-        bar.close()
-        signal.signal(signal.SIGTERM, old)
-        log.close()
-    if export_onnx:
+    run = _Run.start(style, content, out, cfg, state, preview_content, world, device)
+    run.loop()
+    if export_onnx and world.main:
         from .export import export
         export(ckpt_path, out / "teacher.onnx")
+    world.barrier()
     return ckpt_path
+
+
+def _resolve_resume(cfg: TrainConfig, ckpt_path: Path, resume: bool) -> tuple[TrainConfig, ckptmod.Checkpoint | None]:
+    """A resume keeps the run's settings (steps, threads and device may change)."""
+    if not ckpt_path.exists():
+        if resume:
+            raise TrainError(f"--resume given but {ckpt_path} does not exist")
+        return cfg, None
+    if not resume:
+        raise TrainError(f"{ckpt_path} exists: pass --resume to continue it, or choose another -o")
+    state = ckptmod.load(ckpt_path)
+    saved = cfgmod.from_dict(TrainConfig, state.meta["config"])
+    free = ("steps", "threads", "device")
+    for f in fields(TrainConfig):
+        if f.name not in free and getattr(cfg, f.name) != getattr(saved, f.name):
+            print(f"resume keeps the saved {f.name} = {getattr(saved, f.name)!r} "
+                  f"(ignoring {getattr(cfg, f.name)!r})", flush=True)
+    for name in free:
+        setattr(saved, name, getattr(cfg, name))
+    return saved, state
+
+
+class _Run:
+    """One training run's state: data, losses, model, optimizer, log and checkpoints."""
+
+    def __init__(self, **kw) -> None:
+        self.__dict__.update(kw)
+
+    @classmethod
+    def start(cls, style: str, content: list[str], out: Path, cfg: TrainConfig,
+              state: ckptmod.Checkpoint | None, preview_content: list[str] | None,
+              world: World, device: torch.device) -> "_Run":
+        style_bgr, style_name = style_image(style)
+        data: ContentSet = load_content(content, min_items=1, min_side=cfg.size // 2)
+        if data.skipped and world.main:
+            more = f" and {len(data.skipped) - 3} more" if len(data.skipped) > 3 else ""
+            print(f"skipped {len(data.skipped)} content file(s) that are unreadable or smaller than "
+                  f"{cfg.size // 2} px: {', '.join(data.skipped[:3])}{more}", flush=True)
+        previews = load_content(preview_content).items if preview_content else data.items[:4]
+        lossnet, source = build_loss_net(cfg.loss_net, Path(cfg.loss_weights) if cfg.loss_weights else None,
+                                         cfg.loss_seed)
+        lossnet = lossnet.to(device)
+        loss = PerceptualLoss(cfg, lossnet, np.ascontiguousarray(style_bgr[:, :, ::-1]), world)
+        model = build("teacher")
+        init_sha = _warm_start(model, Path(cfg.init)) if cfg.init and state is None else ""
+        start_step, seconds_before = 0, 0.0
+        if state is not None:
+            model.load_state_dict(state.state_dict)
+            loss.scale = dict(state.train_state["loss_scale"])
+            start_step = int(state.train_state["step"])
+            seconds_before = float(state.train_state.get("seconds", 0.0))
+            init_sha = state.meta.get("init_sha256", "")
+        model = model.to(device)
+        opt = torch.optim.Adam(model.parameters(), lr=cfg.lr)
+        if state is not None:
+            opt.load_state_dict(state.train_state["optimizer"])
+        meta = {"style": style_name, "style_sha256": hashlib.sha256(style_bgr.tobytes()).hexdigest(),
+                "loss_network": source.describe(), "data_sha256": data.hashes(),
+                "data_sources": data.sources(), "init_sha256": init_sha, "world_size": world.size,
+                "config": cfgmod.to_jsonable(cfg)}
+        if world.main:
+            out.mkdir(parents=True, exist_ok=True)
+            (out / "config.toml").write_text(cfgmod.dumps_toml(cfg) + f"# world size: {world.size}\n")
+            cv2.imwrite(str(out / "style.png"), style_bgr)
+            if state is not None:
+                _log_rows_upto(out / "losses.csv", start_step)
+        return cls(cfg=cfg, out=out, world=world, device=device, data=data, previews=previews,
+                   loss=loss, model=model, ddp=world.wrap(model, device), opt=opt, meta=meta,
+                   step=start_step, seconds_before=seconds_before, t0=time.monotonic())
+
+    def save(self) -> None:
+        if not self.world.main:
+            return
+        ckptmod.save(ckptmod.from_model(self.model, self.meta, {
+            "step": self.step, "optimizer": self.opt.state_dict(), "loss_scale": dict(self.loss.scale),
+            "seconds": self.seconds_before + time.monotonic() - self.t0, "world_size": self.world.size}),
+            self.out / "checkpoint.pt")
+
+    def one_step(self) -> dict[str, float]:
+        c = self.cfg
+        rng = np.random.default_rng([c.seed, self.step])
+        batch = sample_batch(self.data, rng, c.batch, c.size)   # the whole batch, as one process draws it
+        x = _to_tensor(batch[self.world.share(c.batch)]).to(self.device)
+        total, logs = self.loss.total(self.loss.terms(self.ddp(x), x))
+        self.opt.zero_grad(set_to_none=True)
+        total.backward()                                          # DDP averages the ranks' gradients
+        self.opt.step()
+        self.step += 1
+        return self.world.mean(logs)
+
+    def loop(self) -> None:
+        c, main = self.cfg, self.world.main
+        log = writer = None
+        if main:
+            log_new = not (self.out / "losses.csv").exists()
+            log = (self.out / "losses.csv").open("a", newline="")
+            writer = csv.writer(log)
+            if log_new:
+                writer.writerow(["step", "total", "content", "style", "tv", "seconds"])
+            if self.step:
+                print(f"resuming {self.out / 'checkpoint.pt'} at step {self.step}", flush=True)
+        bar = Progress(c.steps, "train", start=self.step) if main else None
+        old = signal.signal(signal.SIGTERM, _on_term)
+        self.model.train()
+        try:
+            while self.step < c.steps:
+                logs = self.one_step()
+                if not main:
+                    continue
+                writer.writerow([self.step] + [f"{logs[k]:.6g}" for k in ("total", "content", "style", "tv")]
+                                + [f"{self.seconds_before + time.monotonic() - self.t0:.1f}"])
+                bar.update(1, f"loss {logs['total']:.3f} content {logs['content']:.3f} style {logs['style']:.3f}")
+                if self.step % c.checkpoint_every == 0 or self.step == c.steps:
+                    log.flush()
+                    self.save()
+                if self.step % c.preview_every == 0 or self.step == c.steps:
+                    log.flush()
+                    self.model.eval()
+                    _preview(self.model, [i.image for i in self.previews],
+                             self.out / "previews" / f"step{self.step:06d}.png", self.device)
+                    self.model.train()
+        except (KeyboardInterrupt, _Stop):
+            if log:
+                log.flush()
+            self.save()
+            raise TrainStopped(f"stopped at step {self.step}; checkpoint saved to "
+                               f"{self.out / 'checkpoint.pt'} (continue with --resume)") from None
+        finally:
+            if bar:
+                bar.close()
+            signal.signal(signal.SIGTERM, old)
+            if log:
+                log.close()

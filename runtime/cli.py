@@ -41,20 +41,34 @@ def _add_train(p: argparse.ArgumentParser) -> None:
                    help="hed: HED's VGG-16 trunk (default; `make loss-weights` fetches it); vgg16-keras: "
                         "a Keras VGG-16 .h5 file; vgg16: a PyTorch state dict (file, hub cache or "
                         "download); random: random-weight features (tests and experiments only)")
+    p.add_argument("--init", metavar="CHECKPOINT",
+                   help="start from this teacher checkpoint's weights (e.g. another style's teacher)")
+    p.add_argument("--device", help="cpu (default), cuda, cuda:N or auto; under torchrun each rank "
+                   "takes its own GPU")
     p.add_argument("--loss-weights", metavar="FILE",
                    help="the loss network's weight file (.h5 for hed / vgg16-keras, .pth for vgg16)")
 
 
 def _run_train(a: argparse.Namespace) -> int:
-    from limner.compress.train import TrainConfig, train
+    from limner.compress.distributed import shutdown, world_from_env
+    from limner.compress.train import TrainConfig, TrainStopped, train
     from limner.runtime import config as cfgmod
 
     cfg = cfgmod.load(TrainConfig, a.config, {
         "steps": a.steps, "size": a.size, "batch": a.batch, "lr": a.lr,
         "style_weight": a.style_weight, "content_weight": a.content_weight, "seed": a.seed,
-        "threads": a.threads, "loss_net": a.loss_net, "loss_weights": a.loss_weights})
-    ckpt = train(a.style, a.content, a.out, cfg, resume=a.resume, preview_content=a.preview)
-    print(f"checkpoint {ckpt}; model {a.out / 'teacher.onnx'}")
+        "threads": a.threads, "loss_net": a.loss_net, "loss_weights": a.loss_weights,
+        "init": a.init, "device": a.device})
+    try:
+        ckpt = train(a.style, a.content, a.out, cfg, resume=a.resume, preview_content=a.preview)
+    except TrainStopped as e:
+        if world_from_env().rank == 0:
+            print(f"\n{e}", file=sys.stderr)
+        return 130
+    finally:
+        shutdown()
+    if world_from_env().rank == 0:
+        print(f"checkpoint {ckpt}; model {a.out / 'teacher.onnx'}")
     return 0
 
 
@@ -138,18 +152,24 @@ def _add_compress(p: argparse.ArgumentParser) -> None:
 
 
 def _run_compress(a: argparse.Namespace) -> int:
+    from limner.compress.distributed import shutdown, world_from_env
     from limner.compress.pipeline import compress
     from limner.compress.recipe import Recipe
     from limner.runtime import config as cfgmod
 
     recipe = cfgmod.load(Recipe, a.recipe or _default_recipe())
+    main = world_from_env().rank == 0
     try:
         manifest = compress(a.teacher, a.content, recipe, a.out, calibration=a.calibration)
     except KeyboardInterrupt:
-        print(f"\ninterrupted; the current candidate's checkpoint is saved under {a.out / 'work'}. "
-              "Run the same command again to continue.", file=sys.stderr)
+        if main:
+            print(f"\ninterrupted; the current candidate's checkpoint is saved under {a.out / 'work'}. "
+                  "Run the same command again to continue.", file=sys.stderr)
         return 130
-    print(f"{len(manifest['candidates'])} candidate(s); manifest {a.out / 'manifest.json'}")
+    finally:
+        shutdown()
+    if main:
+        print(f"{len(manifest['candidates'])} candidate(s); manifest {a.out / 'manifest.json'}")
     return 0
 
 
@@ -283,7 +303,8 @@ def _known_errors() -> tuple[type[BaseException], ...]:
     errs: list[type[BaseException]] = [ConfigError, ModelError, SourceError, ValueError,
                                        FileNotFoundError, OSError]
     mods = ("limner.bench.run:BenchError", "limner.bench.pick:PickError",
-            "limner.compress.train:TrainError", "limner.compress.pipeline:CompressError", "limner.compress.checkpoint:CheckpointError",
+            "limner.compress.train:TrainError", "limner.compress.pipeline:CompressError",
+            "limner.compress.checkpoint:CheckpointError", "limner.compress.distributed:DistributedError",
             "limner.compress.lossnet:LossNetError", "limner.compress.content:ContentError")
     for spec in mods:  # only those already imported: never import torch just for this
         mod, cls = spec.split(":")

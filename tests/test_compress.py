@@ -29,6 +29,7 @@ target_frame = "160x96"
 crops_per_frame = 4
 checkpoint_every = 5
 threads = 2
+loss_net = "random"
 
 [loss]
 lowpass_l1 = 1.0
@@ -432,12 +433,12 @@ def test_prune_entry_errors_name_the_value(tmp_path, body, message):
 def test_training_device_is_checked_before_any_work():
     """`device = "cuda"` on a machine where torch sees no CUDA device is refused by name;
     `auto` falls back to the CPU (torch.cuda.is_available, torch's own check)."""
-    from limner.compress.pipeline import CompressError, train_device
+    from limner.compress.distributed import DistributedError, train_device
 
     assert train_device("cpu") == torch.device("cpu")
     n = torch.cuda.device_count() if torch.cuda.is_available() else 0
     assert train_device("auto").type == ("cuda" if n else "cpu")
-    with pytest.raises(CompressError, match=f"device='cuda:{n}'"):
+    with pytest.raises(DistributedError, match=f"device='cuda:{n}'"):
         train_device(f"cuda:{n}")
 
 
