@@ -12,7 +12,6 @@
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
 
 import cv2
 import numpy as np
@@ -88,22 +87,6 @@ def ciede2000(lab1: np.ndarray, lab2: np.ndarray, kl: float = 1.0, kc: float = 1
     rt = -np.sin(np.radians(2 * dtheta)) * rc
     return np.sqrt((dLp / (kl * sl)) ** 2 + (dCp / (kc * sc)) ** 2 + (dHp / (kh * sh)) ** 2
                    + rt * (dCp / (kc * sc)) * (dHp / (kh * sh)))
-
-
-@dataclass(frozen=True)
-class ViewingGeometry:
-    """The image spans the display's width; pixels per degree follow from the distance."""
-    display_width_m: float = 1.2      # a 55-inch screen is about 1.21 m wide
-    viewing_distance_m: float = 2.0   # a visitor a couple of steps back
-
-    def __post_init__(self) -> None:
-        if self.display_width_m <= 0 or self.viewing_distance_m <= 0:
-            raise ValueError(f"viewing geometry must be positive, got width "
-                             f"{self.display_width_m} m at {self.viewing_distance_m} m")
-
-    def pixels_per_degree(self, image_width_px: int) -> float:
-        fov_deg = math.degrees(2 * math.atan(self.display_width_m / (2 * self.viewing_distance_m)))
-        return image_width_px / fov_deg
 
 
 def _kernel_1d(sigma_px: float, radius: int) -> np.ndarray:

@@ -3,17 +3,11 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-QUALITY_AXES = ("ms_ssim", "ssim", "psnr", "delta_e")
+from limner.runtime.images import parse_resolution
 
+from .axes import QUALITY
 
-def parse_resolution(text: str) -> tuple[int, int]:
-    try:
-        w, h = (int(v) for v in text.lower().split("x"))
-        if w < 16 or h < 16:
-            raise ValueError
-        return w, h
-    except ValueError:
-        raise ValueError(f"resolution {text!r}: expected WIDTHxHEIGHT, e.g. 640x360") from None
+QUALITY_AXES = tuple(QUALITY)
 
 
 @dataclass

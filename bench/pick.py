@@ -10,7 +10,7 @@ import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from .report import speed_at
+from .axes import QUALITY, speed_at
 
 
 class PickError(Exception):
@@ -24,8 +24,9 @@ class Axis:
     higher: bool      # True: value must be >= threshold
 
 
-AXES = {"fps": Axis("fps", "--min-fps", True), "ms_ssim": Axis("MS-SSIM", "--min-ms-ssim", True),
-        "ssim": Axis("SSIM", "--min-ssim", True), "delta_e": Axis("S-CIELAB dE00", "--max-delta-e", False),
+AXES = {"fps": Axis("fps", "--min-fps", True),
+        **{k: Axis(QUALITY[k].label, ("--min-" if QUALITY[k].higher else "--max-") + k.replace("_", "-"),
+                   QUALITY[k].higher) for k in ("ms_ssim", "ssim", "delta_e")},
         "warp": Axis("warp error", "--max-warp", False)}
 
 

@@ -10,12 +10,10 @@ import matplotlib.pyplot as plt  # noqa: E402
 from matplotlib.text import Text  # noqa: E402
 from matplotlib.transforms import Bbox  # noqa: E402
 
+from .axes import QUALITY, quality_value, speed_at  # noqa: E402
+
 MARKER_PT = 6.8  # marker diameter in points (scatter size is its square)
 COLOURS = {"fp32": "#1f77b4", "int8": "#d62728"}
-LABEL = {"ms_ssim": "MS-SSIM to the teacher (higher is better)",
-         "ssim": "SSIM to the teacher (higher is better)",
-         "psnr": "PSNR to the teacher, dB (higher is better)",
-         "delta_e": "S-CIELAB dE00 to the teacher (lower is better)"}
 
 
 def frontier(points: list[tuple[float, float]], higher_better: bool) -> list[int]:
@@ -70,12 +68,11 @@ def place_labels(fig, ax, pts: list[tuple[float, float]], names: list[str],
 def pareto_plot(rep: dict, path: Path) -> tuple[list, list]:
     """Writes the plot; returns the label boxes and the marker boxes as saved (display
     coordinates), for checking that no label covers another label or a marker."""
-    from .report import quality_value, speed_at
 
     cfg = rep["config"]
     axis, res = cfg["quality_axis"], cfg["plot_resolution"]
     res = next((r for r in rep["resolutions"] if r.split("x")[0] == res.split("x")[0]), rep["resolutions"][0])
-    hib = axis != "delta_e"
+    hib = QUALITY[axis].higher
     pts, rows = [], []
     for r in rep["models"]:
         s = speed_at(r, res)
@@ -99,7 +96,7 @@ def pareto_plot(rep: dict, path: Path) -> tuple[list, list]:
         ax.axvline(cfg["min_ms_ssim"], color="#9467bd", ls="--", lw=1.1,
                    label=f"min MS-SSIM {cfg['min_ms_ssim']:g}")
     ax.set_yscale("log")
-    ax.set_xlabel(LABEL[axis])
+    ax.set_xlabel(QUALITY[axis].axis_label())
     ax.set_ylabel(f"frames per second at {res} (log scale)")
     m = rep["machine"]
     ax.set_title(f"fps against quality loss: {m['cpu']}, {m['cores']} cores, onnxruntime {m['onnxruntime']}",

@@ -7,8 +7,9 @@ from .color import scielab_delta_e
 from .metrics import ms_ssim, psnr, ssim
 from .stability import warp_error
 
-HIGHER_IS_BETTER = {"ssim": True, "ms_ssim": True, "psnr": True, "delta_e": False}
-PSNR_CAP = 99.0  # identical images: report 99 dB instead of infinity (JSON has no inf)
+from .axes import QUALITY
+
+PSNR_CAP = QUALITY["psnr"].perfect  # identical images: 99 dB instead of infinity (JSON has no inf)
 
 
 def pair_metrics(a: np.ndarray, b: np.ndarray, ppd: float) -> dict[str, float]:
@@ -19,10 +20,10 @@ def pair_metrics(a: np.ndarray, b: np.ndarray, ppd: float) -> dict[str, float]:
 def summarise(per_image: list[dict[str, float]]) -> dict[str, dict[str, float]]:
     """Mean and worst image for each metric (worst: lowest, or highest for delta_e)."""
     out = {}
-    for k, hib in HIGHER_IS_BETTER.items():
+    for k, metric in QUALITY.items():
         vals = [d[k] for d in per_image if k in d]
         if vals:
-            out[k] = {"mean": float(np.mean(vals)), "worst": float(min(vals) if hib else max(vals))}
+            out[k] = {"mean": float(np.mean(vals)), "worst": float(metric.worst(vals))}
     return out
 
 

@@ -8,22 +8,8 @@ from pathlib import Path
 import cv2
 import numpy as np
 
+from .axes import QUALITY, speed_at
 from .plots import pareto_plot
-
-QUALITY_LABEL = {"ms_ssim": "MS-SSIM", "ssim": "SSIM", "psnr": "PSNR (dB)", "delta_e": "S-CIELAB dE00"}
-PERFECT = {"ms_ssim": 1.0, "ssim": 1.0, "psnr": 99.0, "delta_e": 0.0}
-
-
-def speed_at(row: dict, resolution: str, threads: int | None = None) -> dict | None:
-    cands = [s for s in row["speed"] if s["resolution"] == resolution
-             and (threads is None or s["threads"] == threads)]
-    return max(cands, key=lambda s: s["threads"]) if cands else None
-
-
-def quality_value(row: dict, axis: str) -> float:
-    if row["fidelity"] is None:  # the teacher against itself
-        return PERFECT[axis]
-    return row["fidelity"][axis]["mean"]
 
 
 def flat_rows(rep: dict) -> list[dict]:
@@ -44,7 +30,7 @@ def flat_rows(rep: dict) -> list[dict]:
                    "p50_ms": round(s["p50_ms"], 2), "p95_ms": round(s["p95_ms"], 2),
                    "p99_ms": round(s["p99_ms"], 2), "load_s": round(s["load_s"], 3),
                    "peak_rss_mb": round(r["peak_rss_mb"], 1), "size_mb": round(r["size_bytes"] / 1e6, 2)}
-            for k in ("ms_ssim", "ssim", "psnr", "delta_e"):
+            for k in QUALITY:
                 row[f"{k}_mean"] = round(f[k]["mean"], 4) if k in f else ""
                 row[f"{k}_worst"] = round(f[k]["worst"], 4) if k in f else ""
             look = r.get("style") or {}

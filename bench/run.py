@@ -10,9 +10,11 @@ from limner.runtime.model import Model, file_sha256, load_model
 from limner.runtime.progress import Progress
 
 from . import machine, report
-from .color import ViewingGeometry
-from .config import BenchConfig, parse_resolution
-from .prepare import add_noise, cover_crop, fit_multiple, lcm_all, list_images, read_image
+from limner.runtime.viewing import ViewingGeometry
+from limner.runtime.images import cover_crop, fit_multiple, lcm_all, list_images, parse_resolution, read_image
+
+from .config import BenchConfig
+from .prepare import add_noise
 from .quality import compare_sets, stability
 from .speed import measure_in_subprocess
 from .style_features import open_for_style, score_set

@@ -41,7 +41,7 @@ def measure(model_path: str, images: list[str], sizes: list[tuple[int, int]], th
     from limner.runtime.model import load_model
     from limner.runtime.session import default_threads
 
-    from .prepare import cover_crop, read_image
+    from limner.runtime.images import cover_crop, read_image
 
     src = [read_image(Path(p)) for p in images]
     results = []

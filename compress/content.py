@@ -14,7 +14,7 @@ from pathlib import Path
 import cv2
 import numpy as np
 
-from limner.bench.prepare import IMAGE_EXTS
+from limner.runtime.images import IMAGE_EXTS
 from limner.runtime.scenes import scene
 from limner.runtime.hashing import file_sha256  # noqa: F401  (re-exported)
 

@@ -75,7 +75,7 @@ def _write_json(path: Path, obj: dict) -> None:
 
 
 def _calibration_frames(data: ContentSet, n: int, side: int, mult: int, seed: int) -> list[np.ndarray]:
-    from limner.bench.prepare import cover_crop
+    from limner.runtime.images import cover_crop
 
     side = side - side % mult
     rng = np.random.default_rng([seed, 31337])

@@ -243,7 +243,7 @@ def _add_int8_probe(p: argparse.ArgumentParser) -> None:
 
 def _run_int8_probe(a: argparse.Namespace) -> int:
     from limner.bench.int8_probe import ProbeSpec, probe
-    from limner.bench.config import parse_resolution
+    from limner.runtime.images import parse_resolution
 
     w, h = parse_resolution(a.size)
     spec = ProbeSpec(channels=a.channels, kernel=a.kernel, height=h, width=w, layers=a.layers,

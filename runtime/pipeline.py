@@ -23,11 +23,11 @@ import numpy as np
 
 from .capture_thread import Capture
 from .flash import FlashLimiter
-from .frames import crop_to_multiple
+from .images import cover_crop, crop_to_multiple, letterbox
 from .governor import Governor
 from .inflight import InFlight, Output
 from .playlist import Playlist, is_open
-from .present import holding_card, letterbox, present
+from .present import holding_card, present
 from .settings import ShowConfig
 from .sinks import VideoFile, Window
 from .sources import FrameSource
@@ -93,16 +93,7 @@ class LiveStats:
 def prepare(frame: np.ndarray, size: tuple[int, int], multiple: int, fit: str) -> np.ndarray:
     """Camera frame -> model input of (about) `size`, a multiple of `multiple` on each side."""
     w, h = size
-    if fit == "letterbox":
-        x = letterbox(frame, w, h)
-    else:
-        fh, fw = frame.shape[:2]
-        k = max(w / fw, h / fh)
-        nw, nh = max(w, round(fw * k)), max(h, round(fh * k))
-        if (nw, nh) != (fw, fh):
-            frame = cv2.resize(frame, (nw, nh), interpolation=cv2.INTER_AREA if k < 1 else cv2.INTER_LINEAR)
-        y0, x0 = (nh - h) // 2, (nw - w) // 2
-        x = frame[y0:y0 + h, x0:x0 + w]
+    x = letterbox(frame, w, h) if fit == "letterbox" else cover_crop(frame, w, h)
     return np.ascontiguousarray(crop_to_multiple(x, multiple))
 
 
@@ -120,7 +111,7 @@ class Live:
         self.multiple = self.playlist.size_multiple()
         self.capture = Capture(opener, stall_s=show.capture.stall_s, pace_fps=show.capture.pace_fps)
         self.governor = Governor(inf.sizes(), inf.target_fps, enabled=inf.governor and not inf.resolution)
-        from limner.bench.color import ViewingGeometry
+        from .viewing import ViewingGeometry
         w0 = self.governor.ladder[-1][0]
         ppd = ViewingGeometry(saf.display_width_m, saf.viewing_distance_m).pixels_per_degree(w0)
         self.limiter = FlashLimiter(ppd, enabled=saf.flash_limit)

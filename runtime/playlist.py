@@ -7,6 +7,7 @@ import os
 import time
 from dataclasses import dataclass
 
+from .images import lcm_all
 from .model import Model, ModelError, load_model
 from .settings import PlayItem
 
@@ -53,12 +54,7 @@ class Playlist:
         return self.loaded[self.index]
 
     def size_multiple(self) -> int:
-        from math import gcd
-        m = 1
-        for entry in self.loaded:
-            k = entry.model.size_multiple
-            m = m * k // gcd(m, k)
-        return m
+        return lcm_all([entry.model.size_multiple for entry in self.loaded])
 
     def step(self, delta: int) -> None:
         """Switch to the next (+1) or previous (-1) look, crossfading."""

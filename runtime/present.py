@@ -5,20 +5,10 @@ from __future__ import annotations
 import cv2
 import numpy as np
 
+from .images import letterbox
 from .settings import DisplaySettings
 
 _ROT = {90: cv2.ROTATE_90_CLOCKWISE, 180: cv2.ROTATE_180, 270: cv2.ROTATE_90_COUNTERCLOCKWISE}
-
-
-def letterbox(img: np.ndarray, w: int, h: int) -> np.ndarray:
-    ih, iw = img.shape[:2]
-    k = min(w / iw, h / ih)
-    nw, nh = max(1, round(iw * k)), max(1, round(ih * k))
-    r = cv2.resize(img, (nw, nh), interpolation=cv2.INTER_LINEAR if k > 1 else cv2.INTER_AREA)
-    out = np.zeros((h, w, 3), np.uint8)
-    y, x = (h - nh) // 2, (w - nw) // 2
-    out[y:y + nh, x:x + nw] = r
-    return out
 
 
 def present(img: np.ndarray, d: DisplaySettings, overlay_text: str | None = None) -> np.ndarray:

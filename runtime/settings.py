@@ -43,7 +43,7 @@ class InferenceSettings:
     smoothing: float = 0.0          # temporal smoothing: weight of the previous output (0 - 0.9)
 
     def __post_init__(self) -> None:
-        from limner.bench.config import parse_resolution
+        from .images import parse_resolution
         for r in self.ladder + ([self.resolution] if self.resolution else []):
             parse_resolution(r)
         if self.fit not in ("crop", "letterbox"):
@@ -58,7 +58,7 @@ class InferenceSettings:
             raise ValueError(f"inference.target_fps={self.target_fps}: must be positive")
 
     def sizes(self) -> list[tuple[int, int]]:
-        from limner.bench.config import parse_resolution
+        from .images import parse_resolution
         return [parse_resolution(self.resolution)] if self.resolution else \
             [parse_resolution(r) for r in self.ladder]
 
@@ -80,7 +80,7 @@ class DisplaySettings:
         if self.rotate not in (0, 90, 180, 270):
             raise ValueError(f"display.rotate={self.rotate}: 0, 90, 180 or 270")
         if self.size:
-            from limner.bench.config import parse_resolution
+            from .images import parse_resolution
             parse_resolution(self.size)
 
 

@@ -9,7 +9,8 @@ import cv2
 import numpy as np
 import pytest
 
-from limner.bench.color import (ViewingGeometry, ciede2000, scielab_delta_e, scielab_kernels,
+from limner.runtime.viewing import ViewingGeometry
+from limner.bench.color import (ciede2000, scielab_delta_e, scielab_kernels,
                                 xyz_to_lab, bgr8_to_xyz)
 from limner.bench.metrics import ms_ssim, psnr, ssim
 from limner.bench.stability import warp_error

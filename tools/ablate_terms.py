@@ -29,7 +29,7 @@ import torch
 
 from limner.bench.color import scielab_delta_e
 from limner.bench.metrics import ms_ssim
-from limner.bench.prepare import cover_crop
+from limner.runtime.images import cover_crop
 from limner.compress.distill import distill
 from limner.compress.lossnet import build_loss_net
 from limner.compress.pipeline import _init_from

@@ -16,7 +16,7 @@ from pathlib import Path
 import cv2
 import numpy as np
 
-from limner.bench.prepare import cover_crop, list_images, read_image
+from limner.runtime.images import cover_crop, list_images, read_image
 from limner.bench.style_features import StyleScorer
 from limner.runtime.model import load_model
 from limner.runtime.styles import style_image

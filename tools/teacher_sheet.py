@@ -12,7 +12,7 @@ from pathlib import Path
 import cv2
 import numpy as np
 
-from limner.bench.prepare import cover_crop, read_image
+from limner.runtime.images import cover_crop, read_image
 from limner.runtime.bundled import HELD_OUT_PHOTOS, STREET_CLIP
 from limner.runtime.model import load_model
 from limner.runtime.styles import style_image
