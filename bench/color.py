@@ -4,7 +4,7 @@
 - CIELAB: CIE 15 with the D65 white point.
 - CIEDE2000: Sharma, Wu & Dalal 2005 (the formulas and test data of that paper).
 - S-CIELAB: Zhang & Wandell 1997. The opponent matrix and the filter weights and
-  spreads below are FROM MEMORY of their published filters (DESIGN.md), not checked
+  spreads below are FROM MEMORY of their published filters (docs/architecture.md), not checked
   against the paper here. The spread s of each Gaussian is in degrees of visual angle
   and enters as exp(-(x^2 + y^2) / s^2), i.e. a standard deviation of s / sqrt(2);
   that reading of "spread" is also from memory.

@@ -68,7 +68,7 @@ class Preprocess:
 # ImageNet statistics of the common PyTorch VGG weights (common practice, no source).
 TORCH_PREPROCESS = Preprocess(False, 1.0, (0.485, 0.456, 0.406), (0.229, 0.224, 0.225))
 # Keras applications' "caffe" mode: BGR, 0-255, minus these means (from memory of
-# keras.applications.imagenet_utils; the same figures as the HED issue and DESIGN.md).
+# keras.applications.imagenet_utils).
 KERAS_PREPROCESS = Preprocess(True, 255.0, (103.939, 116.779, 123.68), (1.0, 1.0, 1.0))
 HED_PREPROCESS = Preprocess(True, 255.0, hed_weights.HED_MEANS_BGR, (1.0, 1.0, 1.0))
 

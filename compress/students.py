@@ -1,6 +1,6 @@
 """The student family: Johnson-style encoder / residual / decoder nets built for speed.
 
-Int8-friendly by construction (DESIGN.md): conv + bias + ReLU, zero padding, no
+Int8-friendly by construction (docs/architecture.md): conv + bias + ReLU, zero padding, no
 normalisation layers. Knobs:
 
 - width: multiplier on the teacher's (32, 64, 128) channels,

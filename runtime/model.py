@@ -1,4 +1,4 @@
-"""Loading and validating a Limner model file (the contract in DESIGN.md).
+"""Loading and validating a Limner model file (the contract in docs/architecture.md).
 
 A model that is missing, empty, foreign, truncated, wrong-typed or of a newer format
 raises ModelError with one line naming the file and the problem.

@@ -1,7 +1,7 @@
 """onnxruntime session settings shared by the live runtime and the bench.
 
 Explicit intra-op threads and spinning off, so capture and display threads get CPU
-(DESIGN.md); one inter-op thread; full graph optimisation.
+(docs/architecture.md); one inter-op thread; full graph optimisation.
 """
 from __future__ import annotations
 

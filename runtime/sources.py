@@ -12,7 +12,7 @@ from typing import Protocol
 import numpy as np
 
 # OpenCV's V4L backend stalls 10 s on a dead camera by default; read once at first open,
-# so it must be set before cv2 opens anything (DESIGN.md).
+# so it must be set before cv2 opens anything (docs/architecture.md).
 os.environ.setdefault("OPENCV_VIDEOIO_V4L_SELECT_TIMEOUT", "2000")
 
 import cv2  # noqa: E402

@@ -1,4 +1,4 @@
-"""A tiny end-to-end bench, run with torch blocked (DESIGN.md: the bench runs on a board)."""
+"""A tiny end-to-end bench, run with torch blocked (the bench runs on a board without torch)."""
 from __future__ import annotations
 
 import csv

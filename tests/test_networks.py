@@ -36,7 +36,7 @@ def test_teacher_macs_at_256_match_hand_arithmetic():
             + hw // 4 * 3 * 3 * 128 * 64              # resize to 128x128 + conv
             + hw * 3 * 3 * 64 * 32                    # resize to 256x256 + conv
             + hw * 9 * 9 * 32 * 3)                    # conv out
-    assert macs == 10_078_912_512  # "about 10.08 GMACs" (DESIGN.md)
+    assert macs == 10_078_912_512  # "about 10.08 GMACs" (docs/architecture.md, Networks)
     assert count_macs(build("teacher"), 256, 256) == macs
 
 
@@ -63,7 +63,7 @@ def test_student_presets_keep_shape_and_rebuild(name):
 
 
 def test_students_are_int8_friendly():
-    # DESIGN.md: no instance norm and zero padding in students
+    # docs/architecture.md: no instance norm and zero padding in students
     for knobs in PRESETS.values():
         net = build("student", **asdict(knobs))
         assert not any(isinstance(m, torch.nn.InstanceNorm2d) for m in net.modules())

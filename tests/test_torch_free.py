@@ -1,4 +1,4 @@
-"""DESIGN.md: runtime and bench run on a board without torch. Importing torch (and onnx)
+"""docs/architecture.md: runtime and bench run on a board without torch. Importing torch (and onnx)
 is made to fail in a subprocess; everything the board needs must still work."""
 from __future__ import annotations
 
