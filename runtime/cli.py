@@ -85,27 +85,10 @@ def _run_export(a: argparse.Namespace) -> int:
 
 
 def _add_live(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--show", metavar="FILE", help="a show file (configs/shows/*.toml): playlist, "
-                   "hours, capture, display, safety, output")
-    p.add_argument("--model", metavar="FILE", help="one Limner .onnx model (default: the bundled one)")
-    p.add_argument("--source", metavar="SRC",
-                   help="camera index, /dev/videoN, video file, stream URL, or 'demo' "
-                        "(default: camera 0 if one opens, else the demo clip)")
+    from limner.runtime.live_options import add_arguments
+
+    add_arguments(p)
     p.add_argument("--list-cameras", action="store_true", help="list cameras that open, then exit")
-    p.add_argument("--output", metavar="FILE", help="record the stylised video (.mp4, .avi)")
-    p.add_argument("--frames", type=int, default=0, metavar="N", help="stop after N frames")
-    p.add_argument("--headless", action="store_true", help="no window")
-    p.add_argument("--fullscreen", action="store_true", default=None, help="fullscreen kiosk window")
-    p.add_argument("--loop", action="store_true", default=None, help="loop a video file or the demo clip")
-    p.add_argument("--pace-fps", type=float, metavar="F", help="play a file at F fps, like a camera")
-    p.add_argument("--resolution", metavar="WxH", help="pin the inference size (governor off)")
-    p.add_argument("--no-governor", action="store_true", help="keep the largest ladder size")
-    p.add_argument("--threads", type=int, help="inference threads in all (default: all cores)")
-    p.add_argument("--workers", type=int, metavar="N",
-                   help="frames stylised side by side, sharing the threads (default: 2 on 2+ cores)")
-    p.add_argument("--snapshot-dir", metavar="DIR", help="where the s key / SIGUSR1 writes stills")
-    p.add_argument("--log-dir", metavar="DIR", help="rotating log files")
-    p.add_argument("--heartbeat", metavar="FILE", help="touched every second for a watchdog")
 
 
 def _run_live(a: argparse.Namespace) -> int:
@@ -115,11 +98,10 @@ def _run_live(a: argparse.Namespace) -> int:
         cams = list_cameras()
         print("\n".join(cams) if cams else "no cameras found")
         return 0
-    from limner.runtime.live import options_from, run_live
+    from limner.runtime.live import run_live
+    from limner.runtime.live_options import from_args
 
-    if a.frames < 0:
-        raise ValueError(f"--frames {a.frames}: must be 0 or more")
-    stats = run_live(options_from(**vars(a)))
+    stats = run_live(from_args(a))
     print(stats.line())
     return 0
 

@@ -7,10 +7,10 @@ from __future__ import annotations
 
 import dataclasses
 import logging
-from dataclasses import dataclass
 from pathlib import Path
 
 from .bundled import DEFAULT_MODEL
+from .live_options import LiveOptions
 from .model import load_model
 from .pipeline import Live, LiveStats
 from .settings import PlayItem, ShowConfig, load_show
@@ -19,28 +19,6 @@ from .sources import DEMO, apply_camera_locks, open_source
 from .unattended import setup_logging
 
 log = logging.getLogger("limner.live")
-
-
-@dataclass
-class LiveOptions:
-    """Command-line choices; None means "as the show file (or default) says"."""
-    show: str | None = None
-    model: str | None = None
-    source: str | None = None
-    output: str | None = None
-    frames: int = 0
-    headless: bool = False
-    fullscreen: bool | None = None
-    threads: int | None = None
-    workers: int | None = None
-    loop: bool | None = None
-    resolution: str | None = None
-    pace_fps: float | None = None
-    no_governor: bool = False
-    snapshot_dir: str | None = None
-    log_dir: str | None = None
-    heartbeat: str | None = None
-    demo_output: str = "limner-demo.mp4"  # written when the demo clip runs with no screen
 
 
 def resolve(opts: LiveOptions) -> ShowConfig:
@@ -98,7 +76,3 @@ def run_live(opts: LiveOptions) -> LiveStats:
                 record_fps=c.pace_fps or c.fps)
     return live.run()
 
-
-def options_from(**kw) -> LiveOptions:
-    fields = {f.name for f in dataclasses.fields(LiveOptions)}
-    return LiveOptions(**{k: v for k, v in kw.items() if k in fields})
