@@ -6,7 +6,8 @@ from pathlib import Path
 
 import numpy as np
 
-from limner.runtime.model import Model, file_sha256, load_model
+from limner.runtime.hashing import file_sha256
+from limner.runtime.model import Model, load_model
 from limner.runtime.progress import Progress
 
 from . import machine, report

@@ -16,7 +16,7 @@ import numpy as np
 
 from limner.runtime.images import IMAGE_EXTS
 from limner.runtime.scenes import scene
-from limner.runtime.hashing import file_sha256  # noqa: F401  (re-exported)
+from limner.runtime.hashing import file_sha256
 
 VIDEO_EXTS = {".mp4", ".avi", ".mov", ".mkv", ".webm", ".m4v"}
 

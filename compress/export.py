@@ -11,7 +11,6 @@ from limner.runtime.metadata import ModelMeta
 from . import checkpoint as ckptmod
 from .checkpoint import atomic_write_bytes
 from .onnx_writer import to_onnx
-from limner.runtime.hashing import file_sha256  # noqa: F401  (re-exported)
 
 
 

@@ -17,7 +17,8 @@ import torch
 
 from limner.runtime import config as cfgmod
 from limner.runtime.metadata import ModelMeta
-from limner.runtime.model import file_sha256, load_model
+from limner.runtime.hashing import file_sha256
+from limner.runtime.model import load_model
 
 from . import checkpoint as ckptmod
 from .checkpoint import atomic_write_bytes

@@ -18,8 +18,7 @@ import onnx
 from onnx import shape_inference
 from onnxruntime.quantization import quant_pre_process
 
-from limner.bench.int8 import (TYPES, IntTypes, count_qdq, detect_types,  # noqa: F401 (re-exported)
-                               quantize_qdq)
+from limner.bench.int8 import TYPES, IntTypes, count_qdq, detect_types, quantize_qdq
 from limner.bench.metrics import ms_ssim
 from limner.runtime.metadata import PREFIX
 from limner.runtime.session import make_session

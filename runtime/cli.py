@@ -302,9 +302,6 @@ def main(argv: list[str] | None = None) -> int:
         parser.print_help()
         return 2
     run = {n: r for n, _, r in SUBCOMMANDS}[a.command]
-    if run is None:
-        print(f"limner {a.command}: not built yet in this release", file=sys.stderr)
-        return 2
     try:
         return run(a)
     except ModuleNotFoundError as e:

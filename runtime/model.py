@@ -13,7 +13,7 @@ import onnxruntime as ort
 
 from .metadata import MetadataError, ModelMeta
 from .session import make_session
-from .hashing import file_sha256  # noqa: F401  (re-exported)
+from .hashing import file_sha256
 
 
 MIN_SIDE = 16  # below this the nets' reflection pads and strides run out of pixels

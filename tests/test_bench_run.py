@@ -10,7 +10,7 @@ import pytest
 import torch
 
 from limner.compress import checkpoint as ck
-from limner.compress.content import file_sha256
+from limner.runtime.hashing import file_sha256
 from limner.compress.export import export
 from limner.compress.registry import build
 
