@@ -8,7 +8,7 @@ from __future__ import annotations
 from torch import nn
 
 from .layers import NearestUp2
-from .onnx_writer import _execution_order
+from .onnx_writer import execution_order
 
 
 def count_params(net: nn.Module) -> int:
@@ -24,7 +24,7 @@ def count_macs(net: nn.Module, height: int, width: int) -> int:
     """Conv MACs of one forward pass on a (height, width) input."""
     h, w = height, width
     total = 0
-    for m in _execution_order(net.net):
+    for m in execution_order(net.net):
         if isinstance(m, nn.Conv2d):
             sh, sw = m.stride
             ph, pw = m.padding

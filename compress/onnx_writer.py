@@ -94,12 +94,12 @@ def _polyphase_weights(w: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.nda
     return w2.astype(np.float32), np.tile(b, 4).astype(np.float32)
 
 
-def _execution_order(module: nn.Module) -> list[nn.Module]:
+def execution_order(module: nn.Module) -> list[nn.Module]:
     """Leaf layers in forward order (our nets are Sequentials with Residual wrappers)."""
     if isinstance(module, nn.Sequential):
-        return [m for child in module for m in _execution_order(child)]
+        return [m for child in module for m in execution_order(child)]
     if isinstance(module, Residual):
-        return _execution_order(module.body)
+        return execution_order(module.body)
     return [module]
 
 
@@ -247,7 +247,7 @@ def _nchw_to_uint8(g: _Graph, x: str, r: int, crop_to: str | None) -> None:
 def to_onnx(net: nn.Module, props: dict[str, str], graph_name: str = "limner") -> onnx.ModelProto:
     """Build the contract graph for `net` (a Sequential `net.net` ending in Squash)."""
     seq = net.net
-    layers = _execution_order(seq)
+    layers = execution_order(seq)
     convs = [m for m in layers if isinstance(m, nn.Conv2d)]
     if not isinstance(layers[-1], Squash):
         raise ValueError("network must end in Squash")

@@ -91,7 +91,7 @@ def _calibration_frames(data: ContentSet, n: int, side: int, mult: int, seed: in
     return frames
 
 
-def _init_from(path: str, fresh: torch.nn.Module, name: str) -> torch.nn.Module:
+def init_from(path: str, fresh: torch.nn.Module, name: str) -> torch.nn.Module:
     """Start a student from a checkpoint (e.g. one distilled with other targets). The
     architecture must be the one the recipe's knobs build, except that a student with
     frame context may start from the same student without it (the context block starts
@@ -298,7 +298,7 @@ class _Run:
         entry = {**asdict(spec), "role": "student", "parent": self.teacher_sha}
         net = build("student", **spec.knobs)
         if spec.init:
-            net = _init_from(spec.init, net, spec.name)
+            net = init_from(spec.init, net, spec.name)
             entry["init_sha256"] = file_sha256(Path(spec.init))
         net = self.distill_and_finish(spec.name, "student", self.teacher_sha, entry, net, spec.steps, spec.lr,
                                       spec.losses(self.recipe.loss), self.out / "work" / spec.name,

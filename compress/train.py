@@ -76,7 +76,7 @@ class TrainStopped(Exception):
     """Ctrl-C or SIGTERM: the checkpoint is saved; the message says how to continue."""
 
 
-def _to_tensor(batch_rgb: np.ndarray) -> torch.Tensor:
+def to_tensor(batch_rgb: np.ndarray) -> torch.Tensor:
     # (B, H, W, 3) uint8 RGB -> (B, 3, H, W) float in [0, 1]
     return torch.from_numpy(np.ascontiguousarray(batch_rgb)).permute(0, 3, 1, 2).float() / 255.0
 
@@ -93,7 +93,7 @@ class PerceptualLoss:
         s = cv2.resize(style_rgb, (cfg.style_size, cfg.style_size), interpolation=cv2.INTER_AREA)
         device = next(lossnet.parameters()).device
         with torch.no_grad():
-            feats = self.net(_to_tensor(s[None]).to(device))
+            feats = self.net(to_tensor(s[None]).to(device))
         self.style_grams = {k: gram(feats[k]) for k in STYLE_LAYERS}
         self.scale: dict[str, float] = {}
 
@@ -134,7 +134,7 @@ def _preview(model: torch.nn.Module, images: list[np.ndarray], path: Path,
         tw, th = width, max(4, round(h * width / w / 4) * 4)
         small = cv2.resize(img, (tw, th), interpolation=cv2.INTER_AREA)
         with torch.no_grad():
-            out = model(_to_tensor(small[None, :, :, ::-1].copy()).to(device))[0].permute(1, 2, 0).cpu().numpy()
+            out = model(to_tensor(small[None, :, :, ::-1].copy()).to(device))[0].permute(1, 2, 0).cpu().numpy()
         styled = (out[:, :, ::-1] * 255 + 0.5).clip(0, 255).astype(np.uint8)
         cols.append(np.concatenate([small, styled], 0))
     hgt = max(c.shape[0] for c in cols)
@@ -280,7 +280,7 @@ class _Run:
         c = self.cfg
         rng = np.random.default_rng([c.seed, self.step])
         batch = sample_batch(self.data, rng, c.batch, c.size)   # the whole batch, as one process draws it
-        x = _to_tensor(batch[self.world.share(c.batch)]).to(self.device)
+        x = to_tensor(batch[self.world.share(c.batch)]).to(self.device)
         total, logs = self.loss.total(self.loss.terms(self.ddp(x), x))
         self.opt.zero_grad(set_to_none=True)
         total.backward()                                          # DDP averages the ranks' gradients

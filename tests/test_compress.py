@@ -237,17 +237,17 @@ def test_rerun_skips_finished_candidates(tiny_run, teacher_onnx):
 
 def test_student_init_checkpoint_must_match_knobs(tmp_path):
     from limner.compress import checkpoint as ck
-    from limner.compress.pipeline import CompressError, _init_from
+    from limner.compress.pipeline import CompressError, init_from
 
     knobs = asdict(PRESETS["s-tiny"])
     torch.manual_seed(0)
     net = build("student", **knobs)
     ck.save(ck.from_model(net, {"name": "tiny"}), tmp_path / "tiny.pt")
-    same = _init_from(str(tmp_path / "tiny.pt"), build("student", **knobs), "tiny")
+    same = init_from(str(tmp_path / "tiny.pt"), build("student", **knobs), "tiny")
     for a, b in zip(net.state_dict().values(), same.state_dict().values()):
         assert torch.equal(a, b)
     # a student with frame context starts from the same student without it, unchanged
-    ctx = _init_from(str(tmp_path / "tiny.pt"), build("student", **knobs | {"context": True}), "tiny-ctx").eval()
+    ctx = init_from(str(tmp_path / "tiny.pt"), build("student", **knobs | {"context": True}), "tiny-ctx").eval()
     x = torch.rand(1, 3, 64, 96)
     with torch.no_grad():
         assert torch.allclose(ctx(x), net.eval()(x), atol=1e-6)
@@ -255,7 +255,7 @@ def test_student_init_checkpoint_must_match_knobs(tmp_path):
     other = 4 if knobs["downscale"] != 4 else 2
     fresh = build("student", **knobs | {"downscale": other})
     first_before = fresh.state_dict()[next(iter(fresh.state_dict()))].clone()
-    moved = _init_from(str(tmp_path / "tiny.pt"), fresh, "tiny-d").state_dict()
+    moved = init_from(str(tmp_path / "tiny.pt"), fresh, "tiny-d").state_dict()
     old_sd = net.state_dict()
     keys = list(moved)
     assert torch.equal(moved[keys[0]], first_before)          # first conv: fresh
@@ -263,7 +263,7 @@ def test_student_init_checkpoint_must_match_knobs(tmp_path):
     # a deeper student of the same widths starts as the shallower one: the extra blocks
     # start as the identity (exact: the residual add of a zero branch, Johnson et al.
     # 2016's blocks), and their first convs keep a random start so training can use them
-    deep = _init_from(str(tmp_path / "tiny.pt"), build("student", **knobs | {"blocks": knobs["blocks"] + 2}),
+    deep = init_from(str(tmp_path / "tiny.pt"), build("student", **knobs | {"blocks": knobs["blocks"] + 2}),
                       "tiny-deep").eval()
     with torch.no_grad():
         assert torch.equal(deep(x), net(x))
@@ -271,11 +271,11 @@ def test_student_init_checkpoint_must_match_knobs(tmp_path):
     extra_first = [m for m in deep.net if isinstance(m, Residual)][-1].body[0].weight
     assert extra_first.abs().sum() > 0
     with pytest.raises(CompressError, match="different architecture"):  # fewer blocks: no
-        _init_from(str(tmp_path / "tiny.pt"), build("student", **knobs | {"blocks": 0}), "tiny-0")
+        init_from(str(tmp_path / "tiny.pt"), build("student", **knobs | {"blocks": 0}), "tiny-0")
     with pytest.raises(CompressError, match="different architecture"):
-        _init_from(str(tmp_path / "tiny.pt"), build("student", **asdict(PRESETS["s-dw"])), "dw")
+        init_from(str(tmp_path / "tiny.pt"), build("student", **asdict(PRESETS["s-dw"])), "dw")
     with pytest.raises(CompressError, match="no such checkpoint"):
-        _init_from(str(tmp_path / "missing.pt"), net, "tiny")
+        init_from(str(tmp_path / "missing.pt"), net, "tiny")
 
 
 def test_unknown_student_loss_setting_is_named(tmp_path):

@@ -22,7 +22,7 @@ import torch
 from limner.compress import checkpoint as ck
 from limner.compress.distributed import World
 from limner.compress.registry import build
-from limner.compress.train import PerceptualLoss, TrainConfig, _to_tensor, train
+from limner.compress.train import PerceptualLoss, TrainConfig, to_tensor, train
 from limner.compress.content import load_content, sample_batch
 from limner.compress.lossnet import build_loss_net
 from limner.runtime.styles import style_image
@@ -66,7 +66,7 @@ def test_two_shares_average_to_the_whole_batch_gradient():
     net, _ = build_loss_net("random", seed=0)
     style = np.ascontiguousarray(style_image("ember")[0][:, :, ::-1])
     data = load_content(PHOTOS, min_side=24)
-    x = _to_tensor(sample_batch(data, np.random.default_rng([0, 0]), 4, 48)).double()
+    x = to_tensor(sample_batch(data, np.random.default_rng([0, 0]), 4, 48)).double()
     model = build("teacher").double()
     net = net.double()
 

@@ -32,7 +32,7 @@ from limner.bench.metrics import ms_ssim
 from limner.runtime.images import cover_crop
 from limner.compress.distill import distill
 from limner.compress.lossnet import build_loss_net
-from limner.compress.pipeline import _init_from
+from limner.compress.pipeline import init_from
 from limner.compress.recipe import Recipe
 from limner.compress.registry import build
 from limner.runtime import config as cfgmod
@@ -101,7 +101,7 @@ def main() -> None:
     for variant in a.variants:
         weights = _weights(variant, recipe.loss)
         r = dataclasses.replace(recipe, loss=weights)
-        net = _init_from(a.init, build("student", **spec.knobs), spec.name)
+        net = init_from(a.init, build("student", **spec.knobs), spec.name)
         with tempfile.TemporaryDirectory() as work:
             net, info = distill(net, cache, r, a.steps, spec.lr, lossnet, Path(work), f"{variant:>20}", {})
         row = {"variant": variant, "steps": a.steps, "seconds": round(info["seconds"], 1)}

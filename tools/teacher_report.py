@@ -23,13 +23,13 @@ from limner.compress import checkpoint as ck
 from limner.compress.lossnet import build_loss_net
 from limner.compress.registry import build
 from limner.runtime.styles import style_image
-from limner.compress.train import PerceptualLoss, TrainConfig, _to_tensor
+from limner.compress.train import PerceptualLoss, TrainConfig, to_tensor
 from limner.runtime import config as cfgmod
 
 
 def stylise(net, bgr: np.ndarray) -> np.ndarray:
     with torch.no_grad():
-        y = net(_to_tensor(bgr[None, :, :, ::-1].copy()))[0].permute(1, 2, 0).numpy()
+        y = net(to_tensor(bgr[None, :, :, ::-1].copy()))[0].permute(1, 2, 0).numpy()
     return (y[:, :, ::-1] * 255 + 0.5).clip(0, 255).astype(np.uint8)
 
 
@@ -55,7 +55,7 @@ def main() -> None:
         s = min(h, w)
         img = cv2.resize(img[(h - s) // 2:(h - s) // 2 + s, (w - s) // 2:(w - s) // 2 + s], (a.size, a.size),
                          interpolation=cv2.INTER_AREA)
-        x = _to_tensor(img[None, :, :, ::-1].copy())
+        x = to_tensor(img[None, :, :, ::-1].copy())
         out = {}
         for name, model in (("trained", trained), ("untrained", untrained)):
             with torch.no_grad():
