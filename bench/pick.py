@@ -27,7 +27,8 @@ class Axis:
 AXES = {"fps": Axis("fps", "--min-fps", True),
         **{k: Axis(QUALITY[k].label, ("--min-" if QUALITY[k].higher else "--max-") + k.replace("_", "-"),
                    QUALITY[k].higher) for k in ("ms_ssim", "ssim", "delta_e")},
-        "warp": Axis("warp error", "--max-warp", False)}
+        "warp": Axis("warp error", "--max-warp", False),
+        "style_share": Axis("style share", "--max-style-share", False)}
 
 
 @dataclass
@@ -36,7 +37,10 @@ class PickResult:
     lines: list[str] = field(default_factory=list)
 
 
-def resolve_threshold(text: str | float | None, floor: float | None, flag: str) -> float | None:
+def resolve_threshold(text: str | float | None, floor: float | None, flag: str,
+                      teacher: float | None = None) -> float | None:
+    """A number, or relative: `floor` (the teacher's noise floor) or `teacher` (the teacher's
+    own value), optionally *K, +K or -K."""
     if text is None:
         return None
     if isinstance(text, (int, float)):
@@ -46,13 +50,14 @@ def resolve_threshold(text: str | float | None, floor: float | None, flag: str) 
         return float(s)
     except ValueError:
         pass
-    m = re.fullmatch(r"floor(?:([*+-])([0-9.]+))?", s)
+    m = re.fullmatch(r"(floor|teacher)(?:([*+-])([0-9.]+))?", s)
     if not m:
-        raise PickError(f"{flag} {text!r}: expected a number, floor, floor*K, floor+K or floor-K")
-    if floor is None:
-        raise PickError(f"{flag} {text!r}: this metric has no teacher noise floor")
-    op, k = m.group(1), float(m.group(2)) if m.group(2) else 0.0
-    return {None: floor, "*": floor * k, "+": floor + k, "-": floor - k}[op]
+        raise PickError(f"{flag} {text!r}: expected a number, or floor / teacher, optionally *K, +K or -K")
+    base = floor if m.group(1) == "floor" else teacher
+    if base is None:
+        raise PickError(f"{flag} {text!r}: this metric has no {'teacher noise floor' if m.group(1) == 'floor' else 'teacher value'}")
+    op, k = m.group(2), float(m.group(3)) if m.group(3) else 0.0
+    return {None: base, "*": base * k, "+": base + k, "-": base - k}[op]
 
 
 def model_path(rep: dict, row: dict) -> str:
@@ -88,11 +93,18 @@ def _values(row: dict, resolution: str) -> dict[str, float | None]:
             "ms_ssim": 1.0 if perfect else f["ms_ssim"]["mean"],
             "ssim": 1.0 if perfect else f["ssim"]["mean"],
             "delta_e": 0.0 if perfect else f["delta_e"]["mean"],
-            "warp": st.get("warp_error")}
+            "warp": st.get("warp_error"),
+            "style_share": (row.get("style") or {}).get("style_share", {}).get("mean")}
+
+
+def _teacher_style(rep: dict) -> float | None:
+    t = next((r for r in rep["models"] if r["is_teacher"]), None)
+    return _values(t, "")["style_share"] if t else None
 
 
 def pick(report: str | Path, *, min_fps: float | None = None, min_ms_ssim=None, min_ssim=None,
-         max_delta_e=None, max_warp=None, resolution: str | None = None) -> PickResult:
+         max_delta_e=None, max_warp=None, max_style_share=None,
+         resolution: str | None = None) -> PickResult:
     rep = load_report(report)
     res = resolution or rep["config"]["plot_resolution"]
     known = rep["resolutions"]
@@ -105,7 +117,8 @@ def pick(report: str | Path, *, min_fps: float | None = None, min_ms_ssim=None, 
          "ms_ssim": resolve_threshold(min_ms_ssim, floor["ms_ssim"]["mean"], "--min-ms-ssim"),
          "ssim": resolve_threshold(min_ssim, floor["ssim"]["mean"], "--min-ssim"),
          "delta_e": resolve_threshold(max_delta_e, floor["delta_e"]["mean"], "--max-delta-e"),
-         "warp": resolve_threshold(max_warp, None, "--max-warp") if max_warp is not None else None}
+         "warp": resolve_threshold(max_warp, None, "--max-warp") if max_warp is not None else None,
+         "style_share": resolve_threshold(max_style_share, None, "--max-style-share", _teacher_style(rep))}
     active = {k: v for k, v in t.items() if v is not None}
     if not active:
         raise PickError("give at least one threshold, e.g. --min-fps 30")

@@ -198,6 +198,8 @@ def _add_pick(p: argparse.ArgumentParser) -> None:
     p.add_argument("--min-ssim", metavar="S", help="number, or relative to the teacher's floor")
     p.add_argument("--max-delta-e", metavar="D", help="S-CIELAB dE00; number or e.g. floor*2")
     p.add_argument("--max-warp", type=float, metavar="W", help="warping error")
+    p.add_argument("--max-style-share", metavar="S",
+                   help="style share (Gram distance to the style, 1 = the photo's); number or e.g. teacher*1.5")
     p.add_argument("--resolution", metavar="WxH", help="default: the report's plot resolution")
 
 
@@ -205,7 +207,8 @@ def _run_pick(a: argparse.Namespace) -> int:
     from limner.bench.pick import pick
 
     r = pick(a.report, min_fps=a.min_fps, min_ms_ssim=a.min_ms_ssim, min_ssim=a.min_ssim,
-             max_delta_e=a.max_delta_e, max_warp=a.max_warp, resolution=a.resolution)
+             max_delta_e=a.max_delta_e, max_warp=a.max_warp, max_style_share=a.max_style_share,
+             resolution=a.resolution)
     if r.chosen is None:
         print("\n".join(r.lines), file=sys.stderr)
         return 1

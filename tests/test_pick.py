@@ -12,7 +12,7 @@ from limner.bench.pick import PickError, pick
 from conftest import PY
 
 
-def _row(name, fps, ms, de, warp, precision="fp32", teacher=False):
+def _row(name, fps, ms, de, warp, precision="fp32", teacher=False, share=None):
     q = lambda v: {"mean": v, "worst": v}  # noqa: E731
     return {"path": f"/models/{name}.onnx", "name": name, "role": "teacher" if teacher else "student",
             "precision": precision, "is_teacher": teacher,
@@ -20,7 +20,8 @@ def _row(name, fps, ms, de, warp, precision="fp32", teacher=False):
                       {"resolution": "320x192", "threads": 2, "fps": fps * 3, "p50_ms": 300 / fps}],
             "fidelity": None if teacher else {"ms_ssim": q(ms), "ssim": q(ms - 0.1), "delta_e": q(de),
                                               "psnr": q(25.0)},
-            "stability": {"noise_ms_ssim": 0.95, "warp_error": warp}}
+            "stability": {"noise_ms_ssim": 0.95, "warp_error": warp},
+            "style": None if share is None else {"style_share": q(share), "content_similarity": q(0.7)}}
 
 
 @pytest.fixture
@@ -28,11 +29,11 @@ def report(tmp_path):
     rep = {"schema": 1, "config": {"plot_resolution": "640x360"}, "resolutions": ["320x192", "640x360"],
            "floor": {"ms_ssim": {"mean": 0.90}, "ssim": {"mean": 0.85}, "delta_e": {"mean": 4.0},
                      "psnr": {"mean": 30.0}},
-           "models": [_row("teacher", 2.3, 1, 0, 0.004, teacher=True),
-                      _row("wide", 20.0, 0.88, 5.0, 0.003),
-                      _row("mid", 35.0, 0.83, 7.0, 0.003),
-                      _row("mid-int8", 41.0, 0.81, 7.5, 0.003, "int8"),
-                      _row("tiny", 70.0, 0.72, 11.0, 0.002)]}
+           "models": [_row("teacher", 2.3, 1, 0, 0.004, teacher=True, share=0.30),
+                      _row("wide", 20.0, 0.88, 5.0, 0.003, share=0.35),
+                      _row("mid", 35.0, 0.83, 7.0, 0.003, share=0.42),
+                      _row("mid-int8", 41.0, 0.81, 7.5, 0.003, "int8", share=0.47),
+                      _row("tiny", 70.0, 0.72, 11.0, 0.002, share=0.60)]}
     (tmp_path / "report.json").write_text(json.dumps(rep))
     return tmp_path
 
@@ -51,6 +52,14 @@ def test_thresholds_relative_to_the_teacher_floor(report):
     assert pick(report, min_fps=30, max_delta_e="floor*2").chosen["name"] == "mid-int8"
     # floor-0.05 for MS-SSIM: 0.85 -> only wide (0.88) and the teacher qualify; wide is faster
     assert pick(report, min_ms_ssim="floor-0.05").chosen["name"] == "wide"
+
+
+def test_style_share_threshold_relative_to_the_teacher(report):
+    # teacher*1.5 = 0.45: mid (0.42) qualifies, mid-int8 (0.47) and tiny (0.60) do not
+    assert pick(report, min_fps=30, max_style_share="teacher*1.5").chosen["name"] == "mid"
+    assert pick(report, max_style_share=0.5).chosen["name"] == "mid-int8"
+    with pytest.raises(PickError, match="no teacher noise floor"):
+        pick(report, max_style_share="floor")
 
 
 def test_resolution_choice(report):
