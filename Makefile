@@ -7,7 +7,7 @@ PIP := $(PY) -m pip
 DEMO_FRAMES ?= 150
 TORCH ?= torch==2.13.0
 
-.PHONY: demo test test-slow clean loss-weights
+.PHONY: demo test test-slow clean loss-weights arm-check
 
 $(VENV)/.created:
 	python3 -m venv $(VENV)
@@ -37,6 +37,11 @@ test: $(VENV)/.dev loss-weights
 
 test-slow: $(VENV)/.dev loss-weights
 	$(PY) -m pytest -q -m slow
+
+# The core under aarch64 emulation (tools/arm_check.py): needs root; builds a Debian arm64
+# root once into ~/.cache/limner/arm64-root, installs qemu-user-static if missing.
+arm-check: $(VENV)/.core
+	$(PY) tools/arm_check.py --install-tools
 
 clean:
 	rm -rf $(VENV) out build *.egg-info

@@ -135,7 +135,9 @@ def probe(spec: ProbeSpec = ProbeSpec(),
     with tempfile.TemporaryDirectory() as tmp:
         fp32, pre, q = (Path(tmp) / n for n in ("fp32.onnx", "pre.onnx", "int8.onnx"))
         onnx.save(conv_chain(spec), str(fp32))
-        quant_pre_process(str(fp32), str(pre))
+        # the probe's shapes are fixed, so ONNX's own shape inference suffices; the symbolic
+        # one needs sympy, which onnxruntime no longer installs (a board's core install lacks it)
+        quant_pre_process(str(fp32), str(pre), skip_symbolic_shape=True)
         quantize_qdq(pre, q, [{"x": c} for c in calib], types)
         counts = count_qdq(onnx.load(str(q)))
         threads = spec.threads or os.cpu_count() or 1

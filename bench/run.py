@@ -12,6 +12,7 @@ from limner.runtime.progress import Progress
 
 from . import machine, report
 from limner.runtime.viewing import ViewingGeometry
+from limner.runtime.outputs import check_out_folder
 from limner.runtime.images import cover_crop, fit_multiple, lcm_all, list_images, parse_resolution, read_image
 
 from .config import BenchConfig
@@ -92,6 +93,7 @@ def bench(models: list[str], teacher: str, content: list[str], out: Path,
     """`style`: the style image (bundled name or path) for the style scores; default: the
     teacher's style name when it is a bundled style."""
     out = Path(out)
+    check_out_folder(out)
     paths = list_models(models)
     teacher_path = Path(teacher)
     paths = [p for p in paths if p.resolve() != teacher_path.resolve()]

@@ -19,6 +19,7 @@ from limner.runtime import config as cfgmod
 from limner.runtime.metadata import ModelMeta
 from limner.runtime.hashing import file_sha256
 from limner.runtime.model import load_model
+from limner.runtime.outputs import check_out_folder
 
 from . import checkpoint as ckptmod
 from .checkpoint import atomic_write_bytes
@@ -163,6 +164,7 @@ def compress(teacher: str, content: list[str], recipe: Recipe, out: Path,
     distillation (no fractions are split off it). Under torchrun every rank distills its
     share of each batch; rank 0 alone writes (teacher export, cache, models, manifest, log)
     and quantizes, and the others wait for it where they read what it wrote."""
+    check_out_folder(Path(out))
     tpath = _check_teacher(Path(teacher), recipe)  # inputs first: a bad one leaves no OUT
     world = world or init(recipe.device)
     data, splits = _content_splits(content, calibration, recipe)

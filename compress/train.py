@@ -25,6 +25,7 @@ from .distributed import World, device_for, init, train_device
 from .content import ContentSet, load_content, sample_batch
 from .losses import content_loss, gram, style_loss_layer, tv_loss
 from .lossnet import CONTENT_LAYER, SOURCES, STYLE_LAYERS, build_loss_net
+from limner.runtime.outputs import check_out_folder
 from limner.runtime.progress import Progress
 from .registry import build
 from limner.runtime.styles import style_image
@@ -184,6 +185,7 @@ def train(style: str, content: list[str], out: Path, cfg: TrainConfig, *,
           export_onnx: bool = True, world: World | None = None) -> Path:
     """Train a teacher for `style` on `content`; returns the checkpoint path."""
     out = Path(out)
+    check_out_folder(out)
     ckpt_path = out / "checkpoint.pt"
     cfg, state = _resolve_resume(cfg, ckpt_path, resume)
     world = world or init(cfg.device)

@@ -7,6 +7,7 @@ from pathlib import Path
 import cv2
 
 from .progress import Progress
+from .outputs import check_out_folder
 from .sources import open_source
 
 
@@ -17,6 +18,7 @@ def capture(source: str | None, frames: int, out: Path, every: int = 1, quality:
     if every < 1:
         raise ValueError(f"--every {every}: must be at least 1")
     out = Path(out)
+    check_out_folder(out)
     src = open_source(source)  # a missing camera or unreadable file fails before out is made
     created = not out.exists()
     out.mkdir(parents=True, exist_ok=True)

@@ -272,11 +272,25 @@ HELP = {
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(prog="limner", description="Real-time style transfer for live "
                                 "cameras: train, compress, benchmark, pick and run style networks.")
+    p.add_argument("--version", action="version", version=_version())
     sub = p.add_subparsers(dest="command", metavar="COMMAND")
     for name, add, _ in SUBCOMMANDS:
         sp = sub.add_parser(name, help=HELP[name], description=HELP[name])
         add(sp)
     return p
+
+
+def _version() -> str:
+    """The installed package's version and the model format it reads and writes."""
+    from importlib.metadata import PackageNotFoundError, version
+
+    from limner.runtime.metadata import FORMAT_VERSION
+
+    try:
+        v = version("limner")
+    except PackageNotFoundError:
+        v = "(not installed)"
+    return f"limner {v} (model format {FORMAT_VERSION})"
 
 
 def _known_errors() -> tuple[type[BaseException], ...]:

@@ -1,12 +1,14 @@
 """Run a module with `import torch` (and onnx) made to fail, as on a board without them.
 
 Usage: python torch_blocker.py MODULE [ARGS...]   (runs MODULE as __main__)
+BLOCK_MODULES=a,b,c in the environment blocks those top-level packages instead.
 """
 import importlib.abc
+import os
 import runpy
 import sys
 
-BLOCKED = ("torch", "torchvision", "onnx")
+BLOCKED = tuple(os.environ.get("BLOCK_MODULES", "torch,torchvision,onnx").split(","))
 
 
 class _Block(importlib.abc.MetaPathFinder):
