@@ -26,7 +26,7 @@ from limner.runtime.session import make_session
 from .export import save_onnx
 from .recipe import Int8Spec
 
-def conv_macs(model: onnx.ModelProto, height: int, width: int) -> dict[str, int]:
+def onnx_conv_macs(model: onnx.ModelProto, height: int, width: int) -> dict[str, int]:
     """Conv node name -> MACs at a fixed input size (shape inference on a pinned copy)."""
     m = onnx.ModelProto()
     m.CopyFrom(model)
@@ -82,7 +82,7 @@ def quantize(fp32_path: Path, out_path: Path, calib: list[np.ndarray], check: li
         quant_pre_process(str(fp32_path), str(pre))
         pre_model = onnx.load(str(pre))
         h, w = check[0].shape[:2]
-        macs = conv_macs(pre_model, h, w)
+        macs = onnx_conv_macs(pre_model, h, w)
         total = sum(macs.values())
         cache = tmp / "calib"
         full = tmp / "full.onnx"

@@ -9,7 +9,7 @@ from pathlib import Path
 import numpy as np
 
 from limner.runtime.inflight import InFlight, Output
-from limner.runtime.pipeline import Live
+from limner.runtime.live_loop import Live
 from limner.runtime.settings import PlayItem, ShowConfig
 
 

@@ -15,7 +15,7 @@ import pytest
 
 from limner.runtime.config import ConfigError
 from limner.runtime.governor import Governor
-from limner.runtime.pipeline import Live
+from limner.runtime.live_loop import Live
 from limner.runtime.playlist import Playlist, is_open
 from limner.runtime.settings import PlayItem, ShowConfig, load_show
 from limner.runtime.unattended import Snapshots

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from limner.runtime.pipeline import LATENCY_BINS, LiveStats
+from limner.runtime.live_loop import LATENCY_BINS, LiveStats
 
 
 def test_latency_percentiles_match_numpy_within_one_bin():

@@ -14,7 +14,7 @@ import pytest
 
 from limner.bench.metrics import ssim
 from limner.runtime.model import load_model
-from limner.runtime.pipeline import prepare
+from limner.runtime.live_loop import prepare
 
 from conftest import PY, REPO
 from xwd import read_xwd
