@@ -43,6 +43,11 @@ def flat_rows(rep: dict) -> list[dict]:
     return out
 
 
+SCIELAB_CAVEAT = ("S-CIELAB caveat: its opponent matrix and spatial filter constants are from "
+                  "memory of Zhang & Wandell 1997, not checked against the paper (bench/color.py); "
+                  "compare dE00 figures between models of one report, not with published values.")
+
+
 def _md_table(rep: dict, resolution: str) -> list[str]:
     floor = rep["floor"]
     lines = [f"### {resolution}", "",
@@ -64,7 +69,8 @@ def _md_table(rep: dict, resolution: str) -> list[str]:
     lines += ["", f"Teacher's own noise floor (its output for noisy input, sigma {rep['noise_sigma']}, "
               f"against its clean output): MS-SSIM {floor['ms_ssim']['mean']:.3f}, SSIM "
               f"{floor['ssim']['mean']:.3f}, PSNR {floor['psnr']['mean']:.1f} dB, S-CIELAB dE00 "
-              f"{floor['delta_e']['mean']:.2f}. No student can be closer to the teacher than this.", ""]
+              f"{floor['delta_e']['mean']:.2f}. No student can be closer to the teacher than this.", "",
+              SCIELAB_CAVEAT, ""]
     return lines
 
 

@@ -31,12 +31,13 @@ def _add_train(p: argparse.ArgumentParser) -> None:
     p.add_argument("--resume", action="store_true", help="continue from OUT/checkpoint.pt")
     p.add_argument("--preview", nargs="+", metavar="PATH",
                    help="held-out images shown in the previews (default: first content images)")
-    for flag, tp, hlp in (("--steps", int, "training steps"), ("--size", int, "crop side in pixels"),
-                          ("--batch", int, "batch size"), ("--lr", float, "Adam learning rate"),
-                          ("--style-weight", float, "style strength"),
-                          ("--content-weight", float, "content weight"),
-                          ("--seed", int, "random seed"), ("--threads", int, "torch threads")):
-        p.add_argument(flag, type=tp, help=hlp + " (overrides the config)")
+    for flag, tp, mv, hlp in (("--steps", int, "N", "training steps"),
+                              ("--size", int, "PX", "side of the square training crops, in pixels"),
+                              ("--batch", int, "N", "batch size"), ("--lr", float, "LR", "Adam learning rate"),
+                              ("--style-weight", float, "W", "style strength"),
+                              ("--content-weight", float, "W", "content weight"),
+                              ("--seed", int, "N", "random seed"), ("--threads", int, "N", "torch threads")):
+        p.add_argument(flag, type=tp, metavar=mv, help=hlp + " (overrides the config)")
     p.add_argument("--loss-net", choices=["hed", "vgg16-keras", "vgg16", "random"],
                    help="hed: HED's VGG-16 trunk (default; `make loss-weights` fetches it); vgg16-keras: "
                         "a Keras VGG-16 .h5 file; vgg16: a PyTorch state dict (file, hub cache or "
@@ -73,8 +74,10 @@ def _run_train(a: argparse.Namespace) -> int:
 
 
 def _add_export(p: argparse.ArgumentParser) -> None:
-    p.add_argument("checkpoint", type=Path, metavar="CHECKPOINT")
-    p.add_argument("-o", "--out", required=True, type=Path, metavar="FILE.onnx")
+    p.add_argument("checkpoint", type=Path, metavar="CHECKPOINT",
+                   help="a training or compression checkpoint (.pt)")
+    p.add_argument("-o", "--out", required=True, type=Path, metavar="OUT",
+                   help="the model file to write (.onnx)")
 
 
 def _run_export(a: argparse.Namespace) -> int:
@@ -111,7 +114,8 @@ def _add_capture(p: argparse.ArgumentParser) -> None:
                    help="camera index, /dev/videoN, video file, URL or 'demo' (default: camera 0, else demo)")
     p.add_argument("--frames", type=int, required=True, metavar="N", help="number of frames to save")
     p.add_argument("--every", type=int, default=1, metavar="K", help="keep every K-th frame (default 1)")
-    p.add_argument("-o", "--out", type=Path, required=True, metavar="DIR")
+    p.add_argument("-o", "--out", type=Path, required=True, metavar="OUT",
+                   help="folder for the frames (frame_NNNNNN.jpg; new frames are numbered on)")
 
 
 def _run_capture(a: argparse.Namespace) -> int:
@@ -130,7 +134,8 @@ def _add_compress(p: argparse.ArgumentParser) -> None:
     p.add_argument("--calibration", nargs="+", metavar="PATH",
                    help="content for int8 calibration only (then --content is all distillation)")
     p.add_argument("--recipe", type=Path, help="TOML recipe (default: configs/compress/default.toml)")
-    p.add_argument("-o", "--out", type=Path, required=True, metavar="OUT")
+    p.add_argument("-o", "--out", type=Path, required=True, metavar="OUT",
+                   help="candidates folder: models, manifest.json, recipe.toml, log, work/")
 
 
 def _run_compress(a: argparse.Namespace) -> int:
@@ -164,8 +169,9 @@ def _default_recipe() -> Path:
 
 def _add_bench(p: argparse.ArgumentParser) -> None:
     p.add_argument("models", nargs="+", metavar="MODEL_OR_DIR", help="model files or folders of them")
-    p.add_argument("--teacher", required=True, metavar="T", help="the teacher model (quality reference)")
-    p.add_argument("--content", nargs="+", required=True, metavar="HELD_OUT",
+    p.add_argument("--teacher", required=True, metavar="TEACHER",
+                   help="the teacher model (quality reference)")
+    p.add_argument("--content", nargs="+", required=True, metavar="PATH",
                    help="held-out images (never seen in training, distillation or calibration)")
     p.add_argument("--clip", metavar="VIDEO", help="clip for the warping error (default: the demo clip)")
     p.add_argument("--style", metavar="STYLE", help="style image for the style scores: a bundled style "
@@ -174,7 +180,8 @@ def _add_bench(p: argparse.ArgumentParser) -> None:
     p.add_argument("--resolutions", nargs="+", metavar="WxH", help="override the resolution ladder")
     p.add_argument("--threads", nargs="+", type=int, metavar="N", help="override thread counts (0: all)")
     p.add_argument("--frames", type=int, metavar="N", help="timed frames per measurement")
-    p.add_argument("-o", "--out", required=True, type=Path, metavar="REPORT")
+    p.add_argument("-o", "--out", required=True, type=Path, metavar="OUT",
+                   help="report folder: report.md, .json, .csv, pareto.png, samples.png")
 
 
 def _run_bench(a: argparse.Namespace) -> int:
@@ -193,7 +200,7 @@ def _run_bench(a: argparse.Namespace) -> int:
 
 def _add_pick(p: argparse.ArgumentParser) -> None:
     p.add_argument("report", metavar="REPORT", help="a bench report folder or its report.json")
-    p.add_argument("--min-fps", type=float, metavar="F")
+    p.add_argument("--min-fps", type=float, metavar="F", help="frames per second at --resolution")
     p.add_argument("--min-ms-ssim", metavar="S", help="number, or relative: floor, floor*K, floor-K")
     p.add_argument("--min-ssim", metavar="S", help="number, or relative to the teacher's floor")
     p.add_argument("--max-delta-e", metavar="D", help="S-CIELAB dE00; number or e.g. floor*2")
@@ -217,20 +224,21 @@ def _run_pick(a: argparse.Namespace) -> int:
 
 
 def _add_int8_probe(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--channels", type=int, default=64, metavar="C")
-    p.add_argument("--kernel", type=int, default=3, metavar="K")
-    p.add_argument("--size", default="320x180", metavar="WxH", help="activation size (default: "
+    p.add_argument("--channels", type=int, default=64, metavar="C", help="channels in and out (default 64)")
+    p.add_argument("--kernel", type=int, default=3, metavar="K", help="kernel side (default 3)")
+    p.add_argument("--resolution", default="320x180", metavar="WxH", help="activation size (default: "
                    "640x360 at half resolution, where the students' bodies run)")
-    p.add_argument("--layers", type=int, default=4, metavar="N")
+    p.add_argument("--layers", type=int, default=4, metavar="N", help="convolutions in the chain (default 4)")
     p.add_argument("--threads", type=int, default=0, metavar="N", help="0: one per core")
-    p.add_argument("--types", default="auto", help="auto (from this CPU), u8s8, u8s8-reduced, s8s8")
+    p.add_argument("--types", default="auto", metavar="TYPES",
+                   help="auto (from this CPU), u8s8, u8s8-reduced, s8s8")
 
 
 def _run_int8_probe(a: argparse.Namespace) -> int:
     from limner.bench.int8_probe import ProbeSpec, probe
     from limner.runtime.images import parse_resolution
 
-    w, h = parse_resolution(a.size)
+    w, h = parse_resolution(a.resolution)
     spec = ProbeSpec(channels=a.channels, kernel=a.kernel, height=h, width=w, layers=a.layers,
                      threads=a.threads, types=a.types)
     from limner.runtime.progress import Progress

@@ -62,6 +62,8 @@ def test_tiny_bench_without_torch(candidates, teacher_onnx, tmp_path):
     assert len(rows) == 2
     for f in ("report.md", "pareto.png", "samples.png"):
         assert (out / f).stat().st_size > 1000
+    # the S-CIELAB figures carry the caveat that their constants are from memory
+    assert "S-CIELAB caveat" in (out / "report.md").read_text()
     # no absolute paths: they are relative to the report folder, and pick turns them back
     for f in ("report.md", "report.csv", "report.json"):
         assert str(tmp_path) not in (out / f).read_text(), f

@@ -50,6 +50,6 @@ def test_probe_spec_names_the_bad_value(change, word):
 
 
 def test_cli_prints_the_ratio(capsys):
-    assert main(["int8-probe", "--channels", "8", "--size", "40x24", "--layers", "1"]) == 0
+    assert main(["int8-probe", "--channels", "8", "--resolution", "40x24", "--layers", "1"]) == 0
     out = capsys.readouterr().out
     assert "int8 runs" in out and "1/1 convs run as int8 kernels" in out

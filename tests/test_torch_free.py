@@ -66,7 +66,7 @@ def test_int8_probe_on_a_board_install_plus_onnx(tmp_path):
 
     env = dict(os.environ, BLOCK_MODULES="torch,torchvision,sympy")
     r = subprocess.run([PY, str(HERE / "torch_blocker.py"), "limner.runtime.cli", "int8-probe",
-                        "--size", "32x16", "--layers", "1", "--channels", "8", "--threads", "1"],
+                        "--resolution", "32x16", "--layers", "1", "--channels", "8", "--threads", "1"],
                        capture_output=True, text=True, cwd=tmp_path, env=env, timeout=300)
     assert r.returncode == 0, r.stderr[-1500:]
     assert "int8" in r.stdout

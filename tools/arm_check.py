@@ -242,7 +242,7 @@ def checks(ref: Path) -> dict:
                      "last_line": _last(text)}
     # the probe writes its test graphs with onnx: one extra package, as its error message says
     text, s = guest(".venv/bin/pip install -q onnx\n"
-                    ".venv/bin/limner int8-probe --size 160x90 --layers 1 --channels 32 --threads 1", "int8-probe")
+                    ".venv/bin/limner int8-probe --resolution 160x90 --layers 1 --channels 32 --threads 1", "int8-probe")
     steps["int8-probe"] = {"seconds": round(s, 1), "last_line": _last(text)}
     cands = " ".join(f"runtime/assets/candidates/ember/{c}" for c in CANDIDATES)
     # the reference is a small student, not the teacher: emulated float math is slow (about
