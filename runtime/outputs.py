@@ -20,10 +20,3 @@ def check_out_folder(path: Path) -> None:
     if not os.access(ancestor, os.W_OK | os.X_OK):
         raise ValueError(f"{path}: cannot be made, {ancestor} is not writable")
 
-
-def check_out_file(path: Path) -> None:
-    """`path` will be written as a file: not a folder, and its folder makeable."""
-    path = Path(path)
-    if path.is_dir():
-        raise ValueError(f"{path}: is a folder, not a file")
-    check_out_folder(path.parent)

@@ -38,28 +38,30 @@ def _truncated_model(d: Path) -> Path:
     return p
 
 
-def _foreign_model(d: Path) -> Path:
-    """A valid ONNX file (Identity on uint8 NHWC) without Limner's metadata."""
-    import onnx
-    from onnx import TensorProto, helper
+def _identity_graph(elem_type: int):
+    """A valid ONNX model (Identity on NHWC of the given element type)."""
+    from onnx import helper
 
-    x = helper.make_tensor_value_info("x", TensorProto.UINT8, [1, None, None, 3])
-    y = helper.make_tensor_value_info("y", TensorProto.UINT8, [1, None, None, 3])
+    x = helper.make_tensor_value_info("x", elem_type, [1, None, None, 3])
+    y = helper.make_tensor_value_info("y", elem_type, [1, None, None, 3])
     g = helper.make_graph([helper.make_node("Identity", ["x"], ["y"])], "g", [x], [y])
+    return helper.make_model(g, opset_imports=[helper.make_opsetid("", 17)])
+
+
+def _foreign_model(d: Path) -> Path:
+    """A valid uint8 ONNX file without Limner's metadata."""
+    import onnx
+
     p = d / "foreign.onnx"
-    onnx.save(helper.make_model(g, opset_imports=[helper.make_opsetid("", 17)]), p)
+    onnx.save(_identity_graph(onnx.TensorProto.UINT8), p)
     return p
 
 
 def _float_input_model(d: Path) -> Path:
     """Limner's metadata copied from the bundled model onto a float-input graph."""
     import onnx
-    from onnx import TensorProto, helper
 
-    x = helper.make_tensor_value_info("x", TensorProto.FLOAT, [1, None, None, 3])
-    y = helper.make_tensor_value_info("y", TensorProto.FLOAT, [1, None, None, 3])
-    g = helper.make_graph([helper.make_node("Identity", ["x"], ["y"])], "g", [x], [y])
-    m = helper.make_model(g, opset_imports=[helper.make_opsetid("", 17)])
+    m = _identity_graph(onnx.TensorProto.FLOAT)
     for prop in onnx.load(DEFAULT, load_external_data=False).metadata_props:
         m.metadata_props.add(key=prop.key, value=prop.value)
     p = d / "float.onnx"
