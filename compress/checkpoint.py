@@ -4,14 +4,14 @@ Loaded with torch.load(weights_only=True): a checkpoint cannot run code.
 """
 from __future__ import annotations
 
-import os
-import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 import torch
 from torch import nn
+
+from limner.runtime.outputs import atomic_write_bytes
 
 from .registry import family_of, rebuild
 
@@ -41,26 +41,6 @@ def from_model(model: nn.Module, meta: dict | None = None,
     return Checkpoint(family_of(model), dict(model.model_args),
                       {k: v.detach().clone() for k, v in model.state_dict().items()},
                       dict(meta or {}), dict(train_state or {}))
-
-
-def atomic_write_bytes(path: Path, write: Any) -> None:
-    """Call write(file_object) on a temp file in the same folder, fsync, rename over path."""
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    try:
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes 0600; outputs get the usual permissions
-        with os.fdopen(fd, "wb") as f:
-            write(f)
-            f.flush()
-            os.fsync(f.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
 
 
 def save(ckpt: Checkpoint, path: Path) -> None:

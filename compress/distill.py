@@ -19,11 +19,11 @@ import torch.nn.functional as F
 from torch import nn
 
 from limner.runtime.model import Model
+from limner.runtime.outputs import atomic_write_bytes
 from limner.runtime.progress import Progress
 
 from . import checkpoint as ckptmod
 from . import frame_norm
-from .checkpoint import atomic_write_bytes
 from .content import ContentSet, sample_batch, sample_frame
 from .distributed import World
 from .losses import gram

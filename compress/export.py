@@ -7,9 +7,9 @@ import onnx
 from torch import nn
 
 from limner.runtime.metadata import ModelMeta
+from limner.runtime.outputs import atomic_write_bytes
 
 from . import checkpoint as ckptmod
-from .checkpoint import atomic_write_bytes
 from .onnx_writer import to_onnx
 
 

@@ -16,13 +16,12 @@ import numpy as np
 import torch
 
 from limner.runtime import config as cfgmod
-from limner.runtime.metadata import ModelMeta
 from limner.runtime.hashing import file_sha256
+from limner.runtime.metadata import ModelMeta
 from limner.runtime.model import load_model
-from limner.runtime.outputs import check_out_folder
+from limner.runtime.outputs import atomic_write_bytes, check_out_folder
 
 from . import checkpoint as ckptmod
-from .checkpoint import atomic_write_bytes
 from .content import ContentItem, ContentSet, load_content
 from .distill import build_cache, distill
 from .distributed import World, device_for, init, train_device
@@ -298,7 +297,7 @@ class _Run:
         if self.skip(spec.name):
             return
         entry = {**asdict(spec), "role": "student", "parent": self.teacher_sha}
-        net = build("student", **spec.knobs)
+        net = build(spec.family, **spec.knobs)
         if spec.init:
             net = init_from(spec.init, net, spec.name)
             entry["init_sha256"] = file_sha256(Path(spec.init))
@@ -344,7 +343,7 @@ class _Run:
                 self.quantize_one(name)
 
     def quantize_one(self, name: str) -> None:
-        from .quantize import quantize, with_props
+        from limner.bench.int8 import quantize, with_props
 
         t0 = time.monotonic()
         spec, calib_set, qname = self.recipe.int8, self.splits["calibration"], f"{name}-int8"

@@ -5,12 +5,9 @@ from __future__ import annotations
 import re
 from dataclasses import dataclass, field, fields, replace
 
-from limner.bench.int8 import CALIBRATIONS
-from limner.bench.int8 import TYPES
+from limner.bench.int8 import Int8Spec
 
-from .students import StudentKnobs
-
-INT_TYPES = ("auto", *TYPES)
+from . import registry
 
 
 @dataclass
@@ -39,14 +36,18 @@ class LossWeights:
 @dataclass
 class StudentSpec:
     name: str
-    knobs: dict = field(default_factory=dict)
+    family: str = "student"        # network family (compress/registry.py)
+    knobs: dict = field(default_factory=dict)  # that family's knobs
     steps: int = 2000
     lr: float = 1e-3
     init: str = ""                 # optional student checkpoint (same knobs) to start from
     loss: dict = field(default_factory=dict)  # this student's changes to [loss], e.g. {gram = 0.0}
 
     def __post_init__(self) -> None:
-        StudentKnobs(**self.knobs)  # validates knob names and values
+        try:
+            registry.knobs(self.family, self.knobs)  # validates the family, knob names and values
+        except ValueError as e:
+            raise ValueError(f"student {self.name}: {e}") from None
         _check_loss(f"student {self.name}", self.loss)
         if self.steps < 1:
             raise ValueError(f"student {self.name}: steps={self.steps} must be at least 1")
@@ -85,35 +86,20 @@ class PruneSpec:
             raise ValueError(f"prune {self.name}: ratio={self.ratio} must be between 0.05 and 0.9")
         if self.rank not in ("auto", "l1", "norm_scale"):
             raise ValueError(f"prune {self.name}: rank={self.rank!r}; expected 'auto', 'l1' or 'norm_scale'")
-        fits = "norm_scale" if self.parent == "teacher" else "l1"
-        if self.rank not in ("auto", fits):
+
+    def check_parent(self, parent_family: str) -> None:
+        """The parent's family can be pruned, and `rank` is how that family ranks channels."""
+        f = registry.family(parent_family)
+        if f.spaces is None:
+            raise ValueError(f"prune {self.name}: parent {self.parent!r} is of the {f.name} family, "
+                             "which cannot be pruned")
+        if self.rank not in ("auto", f.rank):
             raise ValueError(f"prune {self.name}: rank={self.rank!r} does not fit parent {self.parent!r}; "
-                             f"it is ranked by {fits!r}")
+                             f"it is ranked by {f.rank!r}")
 
     def losses(self, base: LossWeights) -> LossWeights:
         """The recipe's [loss] with this entry's changes."""
         return replace(base, **self.loss)
-
-
-@dataclass
-class Int8Spec:
-    enabled: bool = True
-    models: list[str] = field(default_factory=list)   # empty: every fp32 candidate
-    calibration: str = "minmax"
-    types: str = "auto"            # auto: from the CPU (U8S8 on x86, S8S8 on ARM)
-    calibration_frames: int = 32
-    calibration_size: int = 256
-    min_int8_mac_share: float = 0.8
-    max_fp32_layers: int = 3       # sensitivity pass leaves at most this many convs in fp32
-    min_gain: float = 0.002        # ... and only those whose fp32 restores at least this MS-SSIM
-
-    def __post_init__(self) -> None:
-        if self.calibration not in CALIBRATIONS:
-            raise ValueError(f"int8.calibration={self.calibration!r}: one of {', '.join(CALIBRATIONS)}")
-        if self.types not in INT_TYPES:
-            raise ValueError(f"int8.types={self.types!r}: one of {', '.join(INT_TYPES)}")
-        if not 0 <= self.min_int8_mac_share <= 1:
-            raise ValueError(f"int8.min_int8_mac_share={self.min_int8_mac_share}: between 0 and 1")
 
 
 @dataclass
@@ -153,13 +139,14 @@ class Recipe:
         dup = {n for n in names if names.count(n) > 1}
         if dup:
             raise ValueError(f"candidate name {sorted(dup)[0]!r} appears twice in the recipe")
-        students = {s.name for s in self.student}
+        students = {s.name: s.family for s in self.student}
         if "teacher" in names:
             raise ValueError("candidate name 'teacher' is reserved for the teacher")
         for p in self.prune:
             if p.parent not in students and p.parent != "teacher":
                 raise ValueError(f"prune {p.name}: parent {p.parent!r} is neither a student in this recipe "
                                  "nor 'teacher'")
+            p.check_parent(students.get(p.parent, "teacher"))
         for m in self.int8.models:
             if m not in names:
                 raise ValueError(f"int8.models: {m!r} is not a candidate in this recipe")

@@ -1,51 +1,74 @@
-"""Network registry: `build(name, **knobs)` and rebuilding from checkpoint args."""
+"""Network families: one entry per family names everything the rest of Limner needs to
+build, rebuild, configure and prune it.
+
+To add a student family: write its module beside students.py (the nn.Module whose
+constructor takes explicit `model_args`, a frozen knobs dataclass, knobs -> model_args,
+and, if it can be pruned, its channel spaces and a shrunk copy), then add one `Family`
+to FAMILIES below. A recipe picks it with `family = "NAME"` in a [[student]] table.
+"""
 from __future__ import annotations
 
+from dataclasses import dataclass
 from typing import Any, Callable
 
 from torch import nn
 
-from .students import Student, StudentKnobs, student_args
-from .teacher import Teacher
+from .channel_space import ChannelSpace
+from .students import Student, StudentKnobs, student_args, student_shrunk, student_spaces
+from .teacher import Teacher, TeacherKnobs, teacher_args, teacher_shrunk, teacher_spaces
 
 
-def _teacher(**kw: Any) -> Teacher:
-    return Teacher(**kw)
+@dataclass(frozen=True)
+class Family:
+    name: str
+    net: type[nn.Module]                         # constructor taking the checkpoint's model_args
+    knobs: type                                  # frozen dataclass of the user-facing knobs
+    args: Callable[[Any], dict]                  # knobs -> model_args
+    # pruning (compress/prune.py); None: the family cannot be pruned
+    spaces: Callable[[nn.Module], dict[str, ChannelSpace]] | None = None
+    shrunk: Callable[[nn.Module, dict[str, int]], nn.Module] | None = None
+    rank: str = "l1"                             # how its channels are ranked: "l1" or "norm_scale"
 
 
-def _student(**knobs: Any) -> Student:
-    return Student(**student_args(StudentKnobs(**knobs)))
-
-
-# name -> constructor taking user-facing knobs
-_BUILDERS: dict[str, Callable[..., nn.Module]] = {"teacher": _teacher, "student": _student}
-# name -> constructor taking the explicit `model_args` saved in checkpoints
-_REBUILDERS: dict[str, Callable[..., nn.Module]] = {"teacher": Teacher, "student": Student}
+FAMILIES: dict[str, Family] = {f.name: f for f in (
+    Family("teacher", Teacher, TeacherKnobs, teacher_args, teacher_spaces, teacher_shrunk, "norm_scale"),
+    Family("student", Student, StudentKnobs, student_args, student_spaces, student_shrunk, "l1"),
+)}
 
 
 def families() -> list[str]:
-    return sorted(_BUILDERS)
+    return sorted(FAMILIES)
 
 
-def build(name: str, **knobs: Any) -> nn.Module:
-    """Build a fresh network of family `name` from its knobs."""
-    if name not in _BUILDERS:
+def family(name: str) -> Family:
+    if name not in FAMILIES:
         raise ValueError(f"unknown network family {name!r}; known: {', '.join(families())}")
+    return FAMILIES[name]
+
+
+def knobs(name: str, values: dict) -> Any:
+    """The family's knobs dataclass from a recipe table; errors name the bad knob."""
+    f = family(name)
     try:
-        return _BUILDERS[name](**knobs)
+        return f.knobs(**values)
     except TypeError as e:  # unknown knob names
         raise ValueError(f"bad knobs for {name!r}: {e}") from None
 
 
+def build(name: str, **values: Any) -> nn.Module:
+    """Build a fresh network of family `name` from its knobs."""
+    f = family(name)
+    return f.net(**f.args(knobs(name, values)))
+
+
 def rebuild(name: str, model_args: dict) -> nn.Module:
     """Rebuild a network from the explicit args stored in its checkpoint."""
-    if name not in _REBUILDERS:
-        raise ValueError(f"unknown network family {name!r}; known: {', '.join(families())}")
-    return _REBUILDERS[name](**model_args)
+    return family(name).net(**model_args)
 
 
 def family_of(model: nn.Module) -> str:
-    for name, cls in _REBUILDERS.items():
-        if type(model) is cls:
+    for name, f in FAMILIES.items():
+        if type(model) is f.net:
             return name
     raise ValueError(f"{type(model).__name__} is not a registered family")
+

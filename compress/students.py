@@ -23,6 +23,7 @@ from dataclasses import asdict, dataclass
 import torch
 from torch import nn
 
+from .channel_space import ChannelSpace
 from .layers import FrameFiLM, NearestUp2, Residual, Squash, conv
 
 UPSAMPLE_MODES = ("resize", "shuffle")
@@ -159,3 +160,49 @@ PRESETS: dict[str, StudentKnobs] = {
     "s-tiny": StudentKnobs(width=0.25, blocks=1, kernel_in=3, kernel_out=3, downscale=2,
                            upsample="shuffle"),
 }
+
+
+def student_spaces(net: Student) -> dict[str, ChannelSpace]:
+    """The student's prunable channel spaces (compress/prune.py), ranked by filter L1 norm:
+    the residual stream (c3: the last downsampling conv, every block's output conv and the
+    frame-context modulation) is one space; a pixel-shuffle channel is four filters."""
+    a = net.model_args
+    films = [m for m in net.net if isinstance(m, FrameFiLM)]
+    in_film = {id(c) for f in films for c in f.modules()}
+    convs = [m for m in net.net.modules() if isinstance(m, nn.Conv2d) and id(m) not in in_film]
+    shuffle = 4 if a["upsample"] == "shuffle" else 1
+    conv_in, d1, d2 = convs[0], convs[1], convs[2]
+    per_block = 4 if a["depthwise"] else 2
+    blocks = [convs[3 + i * per_block: 3 + (i + 1) * per_block] for i in range(len(a["hidden"]))]
+    up1, up2, conv_out = convs[3 + len(blocks) * per_block:]
+    sp = {"c1": ChannelSpace(a["channels"][0], [(conv_in, 1)], [d1], []),
+          "c2": ChannelSpace(a["channels"][1], [(d1, 1)], [d2], []),
+          "c3": ChannelSpace(a["channels"][2], [(d2, 1)], [up1], []),
+          "u1": ChannelSpace(a["up_channels"][0], [(up1, shuffle)], [up2], []),
+          "u2": ChannelSpace(a["up_channels"][1], [(up2, shuffle)], [conv_out], [])}
+    for f in films:  # frame context reads and modulates the residual stream
+        sp["c3"].consumers.append(f.squeeze)
+        sp["c3"].producers += [(f.gamma, 1), (f.beta, 1)]
+    for i, b in enumerate(blocks):
+        if a["depthwise"]:
+            dw1, pw1, dw2, pw2 = b
+            sp["c3"].depthwise.append(dw1)
+            sp["c3"].consumers.append(pw1)
+            sp["c3"].producers.append((pw2, 1))
+            sp[f"h{i}"] = ChannelSpace(a["hidden"][i], [(pw1, 1)], [pw2], [dw2])
+        else:
+            ca, cb = b
+            sp["c3"].consumers.append(ca)
+            sp["c3"].producers.append((cb, 1))
+            sp[f"h{i}"] = ChannelSpace(a["hidden"][i], [(ca, 1)], [cb], [])
+    return sp
+
+
+def student_shrunk(net: Student, n: dict[str, int]) -> Student:
+    """A fresh student with `n[space]` channels in each of student_spaces' spaces."""
+    a = net.model_args
+    hidden = [n[f"h{i}"] for i in range(len(a["hidden"]))]
+    return Student(channels=[n["c1"], n["c2"], n["c3"]], hidden=hidden, up_channels=[n["u1"], n["u2"]],
+                   kernel_in=a["kernel_in"], kernel_out=a["kernel_out"], depthwise=a["depthwise"],
+                   downscale=a["downscale"], upsample=a["upsample"], context=a.get("context", 0),
+                   knobs=a["knobs"])

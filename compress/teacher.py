@@ -8,10 +8,30 @@ count as the published fractionally strided convs, without checkerboard artifact
 """
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import torch
 from torch import nn
 
+from .channel_space import ChannelSpace
 from .layers import NearestUp2, Residual, Squash, conv
+
+
+@dataclass(frozen=True)
+class TeacherKnobs:
+    """The published shape (Johnson et al. 2016) by default."""
+    channels: tuple[int, int, int] = (32, 64, 128)
+    blocks: int = 5
+
+    def __post_init__(self) -> None:
+        if len(self.channels) != 3 or min(self.channels) < 1:
+            raise ValueError(f"channels={self.channels}: three positive widths")
+        if not 1 <= self.blocks <= 16:
+            raise ValueError(f"blocks={self.blocks}: must be between 1 and 16")
+
+
+def teacher_args(knobs: TeacherKnobs) -> dict:
+    return {"channels": tuple(knobs.channels), "blocks": knobs.blocks}
 
 
 def _norm_relu(c: int) -> list[nn.Module]:
@@ -50,3 +70,36 @@ class Teacher(nn.Module):
     def forward(self, x: torch.Tensor) -> torch.Tensor:
         # x: (N, 3, H, W) RGB in [0, 1], H and W multiples of 4 -> (N, 3, H, W) RGB in [0, 1]
         return self.net(x)
+
+
+def teacher_spaces(net: Teacher) -> dict[str, ChannelSpace]:
+    """The teacher's prunable channel spaces (compress/prune.py), ranked by instance-norm
+    scale: each conv's output space with its norm; the residual stream (c3) is one space."""
+    mods = list(net.net)
+    convs = [m for m in mods if isinstance(m, nn.Conv2d)]
+    norms = [m for m in mods if isinstance(m, nn.InstanceNorm2d)]
+    blocks = [m.body for m in mods if isinstance(m, Residual)]
+    conv_in, d1, d2, up1, up2, conv_out = convs
+    n_in, n1, n2, nu1, nu2 = norms
+    a = net.model_args
+    c1, c2, c3 = a["channels"]
+    u1, u2 = a.get("up_channels", [c2, c1])
+    sp = {"c1": ChannelSpace(c1, [(conv_in, 1)], [d1], [], [n_in]),
+          "c2": ChannelSpace(c2, [(d1, 1)], [d2], [], [n1]),
+          "c3": ChannelSpace(c3, [(d2, 1)], [up1], [], [n2]),
+          "u1": ChannelSpace(u1, [(up1, 1)], [up2], [], [nu1]),
+          "u2": ChannelSpace(u2, [(up2, 1)], [conv_out], [], [nu2])}
+    for i, b in enumerate(blocks):
+        ca, na, _, cb, nb = b
+        sp["c3"].consumers.append(ca)
+        sp["c3"].producers.append((cb, 1))
+        sp["c3"].norms.append(nb)
+        sp[f"h{i}"] = ChannelSpace(ca.out_channels, [(ca, 1)], [cb], [], [na])
+    return sp
+
+
+def teacher_shrunk(net: Teacher, n: dict[str, int]) -> Teacher:
+    """A fresh teacher with `n[space]` channels in each of teacher_spaces' spaces."""
+    hidden = [n[f"h{i}"] for i in range(sum(1 for k in n if k.startswith("h")))]
+    return Teacher(channels=(n["c1"], n["c2"], n["c3"]), blocks=net.model_args["blocks"], hidden=hidden,
+                   up_channels=[n["u1"], n["u2"]])

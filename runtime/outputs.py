@@ -1,9 +1,12 @@
-"""Checks on where a subcommand will write, made before any work starts (nothing is
-computed for an hour and then lost because the output folder cannot be made)."""
+"""Where a subcommand writes: checks made before any work starts (nothing is computed for
+an hour and then lost because the output folder cannot be made), and atomic file writes
+(a crash or a full disk leaves the old file or none, never half a file)."""
 from __future__ import annotations
 
 import os
+import tempfile
 from pathlib import Path
+from typing import Any
 
 
 def check_out_folder(path: Path) -> None:
@@ -20,3 +23,22 @@ def check_out_folder(path: Path) -> None:
     if not os.access(ancestor, os.W_OK | os.X_OK):
         raise ValueError(f"{path}: cannot be made, {ancestor} is not writable")
 
+
+def atomic_write_bytes(path: Path, write: Any) -> None:
+    """Call write(file_object) on a temp file in the same folder, fsync, rename over path."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    try:
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes 0600; outputs get the usual permissions
+        with os.fdopen(fd, "wb") as f:
+            write(f)
+            f.flush()
+            os.fsync(f.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise

@@ -14,7 +14,7 @@ import torch
 from limner.bench.metrics import ms_ssim
 from limner.compress import checkpoint as ck
 from limner.compress.layers import FrameFiLM, Residual
-from limner.compress.prune import _spaces, conv_weight_count, prune, prune_to
+from limner.compress.prune import conv_weight_count, prune, prune_to, spaces
 from limner.compress.registry import build
 from limner.compress.students import PRESETS
 from limner.runtime.model import load_model
@@ -77,7 +77,7 @@ def test_pruning_zero_filters_leaves_output_unchanged(name):
                 c.bias.data.normal_(0, 0.05)
     keep = {}
     with torch.no_grad():
-        for space, s in _spaces(net).items():
+        for space, s in spaces(net).items():
             drop = torch.arange(0, s.size, 3)
             for conv, rows in s.producers:
                 r = (drop[:, None] * rows + torch.arange(rows)[None]).reshape(-1)
@@ -309,7 +309,7 @@ def test_pruning_teacher_channels_with_zero_scale_is_exact():
     net = _small_teacher()
     keep = {}
     with torch.no_grad():
-        for space, s in _spaces(net).items():
+        for space, s in spaces(net).items():
             drop = torch.arange(0, s.size, 3)
             for n in s.norms:
                 n.weight[drop] = 0
@@ -327,20 +327,20 @@ def test_pruning_teacher_channels_with_zero_scale_is_exact():
 
 def test_teacher_pruning_ranks_by_norm_scale_and_reaches_ratio():
     net = _small_teacher()
-    h0 = _spaces(net)["h0"]
+    h0 = spaces(net)["h0"]
     with torch.no_grad():  # make one inner channel of the first block the least important
         h0.norms[0].weight[5] = 1e-3
     small = prune(net, 0.5)
     achieved = 1 - conv_weight_count(small) / conv_weight_count(net)
     assert abs(achieved - 0.5) <= 0.05
-    kept = _spaces(small)["h0"].producers[0][0].weight
+    kept = spaces(small)["h0"].producers[0][0].weight
     assert kept.shape[0] < h0.size
     # the lowest-|gamma| channel went: no kept filter equals its filter
     gone = h0.producers[0][0].weight[5]
     assert not any(torch.equal(gone, w) for w in kept)
     # and the kept channels are exactly those with the largest |gamma| (Liu et al. 2017)
     g = h0.norms[0].weight.detach().abs()
-    kept_g = _spaces(small)["h0"].norms[0].weight.detach().abs()
+    kept_g = spaces(small)["h0"].norms[0].weight.detach().abs()
     assert torch.equal(torch.sort(kept_g).values, torch.sort(torch.topk(g, len(kept_g)).values).values)
 
 
@@ -419,6 +419,9 @@ def test_pruned_teacher_rung_end_to_end(teacher_onnx, tmp_path):
     ('[[prune]]\nname = "p"\nparent = "nobody"\n', "neither a student"),
     ('[[prune]]\nname = "p"\nparent = "teacher"\nsteps = 0\n', "steps=0"),
     ('device = "gpu"\n', "device='gpu'"),
+    ('[[student]]\nname = "s"\nfamily = "tree"\n', "student s: unknown network family 'tree'"),
+    ('[[student]]\nname = "s"\nknobs = {wings = 2}\n', "student s: bad knobs for 'student'.*wings"),
+    ('[[student]]\nname = "s"\nknobs = {blocks = 40}\n', "student s: blocks=40"),
 ])
 def test_prune_entry_errors_name_the_value(tmp_path, body, message):
     from limner.compress.recipe import Recipe
@@ -456,3 +459,29 @@ def test_bad_inputs_leave_no_output_folder(case, teacher_onnx, tmp_path):
     assert r.returncode == 1, r.stderr
     assert "Traceback" not in r.stderr and r.stderr.strip().startswith("limner compress: error:")
     assert not out.exists()
+
+
+def test_a_family_registered_once_is_built_configured_and_pruned_by_name(monkeypatch, tmp_path):
+    """One Family entry is all the recipe, the builder, the checkpoint and the pruner need
+    (compress/registry.py); a family without channel spaces is refused by name for pruning."""
+    from dataclasses import replace
+
+    from limner.compress import registry
+    from limner.compress.recipe import Recipe
+    from limner.runtime import config as cfgmod
+
+    plain = registry.FAMILIES["student"]
+    monkeypatch.setitem(registry.FAMILIES, "rigid", replace(plain, name="rigid", spaces=None, shrunk=None))
+    monkeypatch.setitem(registry.FAMILIES, "student", plain)
+    rec = tmp_path / "r.toml"
+    rec.write_text('[[student]]\nname = "s"\nfamily = "rigid"\nknobs = {width = 0.25, blocks = 1}\n'
+                   '[[prune]]\nname = "p"\nparent = "s"\n')
+    with pytest.raises(cfgmod.ConfigError, match="parent 's' is of the rigid family, which cannot be pruned"):
+        cfgmod.load(Recipe, rec)
+    rec.write_text('[[student]]\nname = "s"\nfamily = "student"\nknobs = {width = 0.25, blocks = 1}\n'
+                   '[[prune]]\nname = "p"\nparent = "s"\nratio = 0.5\n')
+    r = cfgmod.load(Recipe, rec)
+    net = registry.build(r.student[0].family, **r.student[0].knobs)
+    small = prune(net, 0.5)
+    assert registry.family_of(small) == "student"
+    assert abs(1 - conv_weight_count(small) / conv_weight_count(net) - 0.5) <= 0.05

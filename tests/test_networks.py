@@ -7,7 +7,8 @@ from dataclasses import asdict
 import pytest
 import torch
 
-from limner.compress.macs import conv_macs, count_macs, count_params
+from limner.compress.layer_table import conv_macs
+from limner.compress.macs import count_macs, count_params
 from limner.compress.registry import build, rebuild
 from limner.compress.students import PRESETS, StudentKnobs
 
