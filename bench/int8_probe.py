@@ -18,13 +18,11 @@ from pathlib import Path
 from typing import Callable
 
 import numpy as np
-
 import onnxruntime as ort
-
+from limner.runtime.errors import InputError
 from limner.runtime.session import make_session, session_options
 
 from .int8 import TYPES, count_qdq, detect_types, quantize_qdq
-
 
 PAYS_AT = 1.15  # int8 / fp32 speed an int8 candidate should reach to be worth its quality cost
 
@@ -44,13 +42,13 @@ class ProbeSpec:
     def __post_init__(self) -> None:
         for name in ("channels", "kernel", "height", "width", "layers", "rounds", "runs"):
             if getattr(self, name) < 1:
-                raise ValueError(f"{name}={getattr(self, name)}: must be >= 1")
+                raise InputError(f"{name}={getattr(self, name)}: must be >= 1")
         if self.kernel % 2 == 0:
-            raise ValueError(f"kernel={self.kernel}: must be odd (same padding)")
+            raise InputError(f"kernel={self.kernel}: must be odd (same padding)")
         if self.threads < 0:
-            raise ValueError(f"threads={self.threads}: must be >= 0")
+            raise InputError(f"threads={self.threads}: must be >= 0")
         if self.types != "auto" and self.types not in TYPES:
-            raise ValueError(f"types={self.types!r}: one of auto, {', '.join(TYPES)}")
+            raise InputError(f"types={self.types!r}: one of auto, {', '.join(TYPES)}")
 
     @property
     def macs(self) -> int:

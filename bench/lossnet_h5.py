@@ -18,6 +18,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
+from limner.runtime.errors import InputError
 
 # VGG-16 convs per block (block index -> number of convs).
 _BLOCKS = {1: 2, 2: 2, 3: 3, 4: 3, 5: 3}
@@ -25,7 +26,7 @@ CONV_NAMES = [f"conv{b}_{k}" for b, n in _BLOCKS.items() for k in range(1, n + 1
 HEAD_NAMES = ("dsn1", "dsn2", "dsn3", "dsn4", "dsn5", "fuse")
 
 
-class H5Error(Exception):
+class H5Error(InputError):
     pass
 
 

@@ -10,10 +10,12 @@ import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from limner.runtime.errors import InputError
+
 from .axes import QUALITY, speed_at
 
 
-class PickError(Exception):
+class PickError(InputError):
     pass
 
 

@@ -16,6 +16,7 @@ from dataclasses import asdict, dataclass
 from pathlib import Path
 
 import numpy as np
+from limner.runtime.errors import InputError
 
 from ..runtime.bundled import CANDIDATES, HELD_OUT_PHOTOS, MODELS
 from ..runtime.images import cover_crop, read_image
@@ -88,7 +89,7 @@ def compare(reference: Path, other: Path) -> list[Difference]:
     f_ref, ref, meta_ref = read(reference)
     f_oth, oth, _ = read(other)
     if not np.array_equal(f_ref, f_oth):
-        raise ValueError(f"{other}: was run on a different frame than {reference}")
+        raise InputError(f"{other}: was run on a different frame than {reference}")
     by_sha = {i["sha256"]: name for name, i in meta_ref["models"].items()}
     diffs = []
     for name, y in sorted(ref.items()):

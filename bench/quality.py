@@ -3,11 +3,10 @@ from __future__ import annotations
 
 import numpy as np
 
+from .axes import QUALITY
 from .color import scielab_delta_e
 from .metrics import ms_ssim, psnr, ssim
 from .stability import warp_error
-
-from .axes import QUALITY
 
 PSNR_CAP = QUALITY["psnr"].perfect  # identical images: 99 dB instead of infinity (JSON has no inf)
 

@@ -5,16 +5,22 @@ from dataclasses import asdict
 from pathlib import Path
 
 import numpy as np
-
+from limner.runtime.errors import InputError
 from limner.runtime.hashing import file_sha256
+from limner.runtime.images import (
+    cover_crop,
+    fit_multiple,
+    lcm_all,
+    list_images,
+    parse_resolution,
+    read_image,
+)
 from limner.runtime.model import Model, load_model
+from limner.runtime.outputs import check_out_folder
 from limner.runtime.progress import Progress
+from limner.runtime.viewing import ViewingGeometry
 
 from . import machine, report
-from limner.runtime.viewing import ViewingGeometry
-from limner.runtime.outputs import check_out_folder
-from limner.runtime.images import cover_crop, fit_multiple, lcm_all, list_images, parse_resolution, read_image
-
 from .config import BenchConfig
 from .prepare import add_noise
 from .quality import compare_sets, stability
@@ -24,7 +30,7 @@ from .style_features import open_for_style, score_set
 SCHEMA_VERSION = 1
 
 
-class BenchError(Exception):
+class BenchError(InputError):
     pass
 
 
@@ -133,7 +139,7 @@ def bench(models: list[str], teacher: str, content: list[str], out: Path,
                                       cfg.warmup, cfg.frames)
         bar.update(1, f"{m.path.name}: done")
         rows.append({"path": str(m.path), "name": m.meta.name or m.path.stem, "role": m.meta.role,
-                     "precision": m.meta.precision, "style": m.meta.style, "parent": m.meta.parent,
+                     "precision": m.meta.precision, "style_name": m.meta.style, "parent": m.meta.parent,
                      "sha256": m.sha256(), "size_bytes": m.path.stat().st_size,
                      "size_multiple": m.size_multiple, "arch": m.meta.arch,
                      "calibration": m.meta.calibration, "is_teacher": m is teacher_m,

@@ -38,10 +38,9 @@ def _percentile(v: list[float], q: float) -> float:
 
 def measure(model_path: str, images: list[str], sizes: list[tuple[int, int]], threads: list[int],
             warmup: int, frames: int) -> dict:
+    from limner.runtime.images import cover_crop, read_image
     from limner.runtime.model import load_model
     from limner.runtime.session import default_threads
-
-    from limner.runtime.images import cover_crop, read_image
 
     src = [read_image(Path(p)) for p in images]
     results = []

@@ -22,7 +22,6 @@ from pathlib import Path
 
 import cv2
 import numpy as np
-
 from limner.runtime.session import default_threads, make_session
 
 from . import hed_weights

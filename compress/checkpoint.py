@@ -9,16 +9,16 @@ from pathlib import Path
 from typing import Any
 
 import torch
-from torch import nn
-
+from limner.runtime.errors import InputError
 from limner.runtime.outputs import atomic_write_bytes
+from torch import nn
 
 from .registry import family_of, rebuild
 
 CHECKPOINT_FORMAT = 1
 
 
-class CheckpointError(Exception):
+class CheckpointError(InputError):
     pass
 
 

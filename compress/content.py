@@ -13,15 +13,15 @@ from pathlib import Path
 
 import cv2
 import numpy as np
-
+from limner.runtime.errors import InputError
+from limner.runtime.hashing import file_sha256
 from limner.runtime.images import IMAGE_EXTS
 from limner.runtime.scenes import scene
-from limner.runtime.hashing import file_sha256
 
 VIDEO_EXTS = {".mp4", ".avi", ".mov", ".mkv", ".webm", ".m4v"}
 
 
-class ContentError(ValueError):
+class ContentError(InputError):
     pass
 
 

@@ -16,11 +16,10 @@ from pathlib import Path
 import numpy as np
 import torch
 import torch.nn.functional as F
-from torch import nn
-
 from limner.runtime.model import Model
 from limner.runtime.outputs import atomic_write_bytes
 from limner.runtime.progress import Progress
+from torch import nn
 
 from . import checkpoint as ckptmod
 from . import frame_norm
@@ -30,7 +29,6 @@ from .losses import gram
 from .lossnet import STYLE_LAYERS
 from .recipe import LossWeights, Recipe
 from .ssim_loss import ms_ssim
-
 
 
 def build_cache(teacher: Model, data: ContentSet, recipe: Recipe, path: Path) -> dict[str, np.ndarray]:

@@ -17,10 +17,11 @@ from datetime import timedelta
 
 import torch
 import torch.distributed as dist
+from limner.runtime.errors import InputError
 from torch import nn
 
 
-class DistributedError(Exception):
+class DistributedError(InputError):
     pass
 
 

@@ -4,14 +4,12 @@ from __future__ import annotations
 from pathlib import Path
 
 import onnx
-from torch import nn
-
 from limner.runtime.metadata import ModelMeta
 from limner.runtime.outputs import atomic_write_bytes
+from torch import nn
 
 from . import checkpoint as ckptmod
 from .onnx_writer import to_onnx
-
 
 
 def save_onnx(model: onnx.ModelProto, out: Path) -> Path:

@@ -11,10 +11,10 @@ from pathlib import Path
 
 import torch
 import torch.nn.functional as F
+from limner.bench.lossnet_h5 import HEAD_NAMES, read_hed_h5
 from torch import nn
 
 from .lossnet import VGG16Features
-from limner.bench.lossnet_h5 import HEAD_NAMES, read_hed_h5
 
 _TAPS = ("relu1_2", "relu2_2", "relu3_3", "relu4_3", "relu5_3")
 

@@ -26,11 +26,11 @@ from pathlib import Path
 
 import torch
 import torch.nn.functional as F
-from torch import nn
-from limner.runtime.hashing import file_sha256
-
 from limner.bench import hed_weights
 from limner.bench.lossnet_h5 import H5Error, read_hed_h5, read_keras_applications_h5
+from limner.runtime.errors import InputError
+from limner.runtime.hashing import file_sha256
+from torch import nn
 
 # VGG-16's 13 convs: (name, index in the PyTorch `features` Sequential, in, out channels).
 CONVS = [("conv1_1", 0, 3, 64), ("conv1_2", 2, 64, 64),
@@ -50,7 +50,7 @@ HUB_FILE = "vgg16-397923af.pth"
 HUB_URL = "https://download.pytorch.org/models/" + HUB_FILE
 
 
-class LossNetError(Exception):
+class LossNetError(InputError):
     pass
 
 

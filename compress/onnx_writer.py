@@ -25,7 +25,14 @@ import onnx
 from onnx import TensorProto, helper
 from torch import nn
 
-from .layer_table import Graph, Polyphase, WeightFix, emit, execution_order, polyphase_ok
+from .layer_table import (
+    Graph,
+    Polyphase,
+    WeightFix,
+    emit,
+    execution_order,
+    polyphase_ok,
+)
 from .layers import Squash
 
 OPSET = 17

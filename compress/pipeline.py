@@ -14,8 +14,8 @@ from typing import Callable
 
 import numpy as np
 import torch
-
 from limner.runtime import config as cfgmod
+from limner.runtime.errors import InputError
 from limner.runtime.hashing import file_sha256
 from limner.runtime.metadata import ModelMeta
 from limner.runtime.model import load_model
@@ -34,7 +34,7 @@ from .recipe import LossWeights, PruneSpec, Recipe, StudentSpec
 from .registry import build
 
 
-class CompressError(Exception):
+class CompressError(InputError):
     pass
 
 

@@ -22,6 +22,7 @@ and rebuilds for any family that states them.
 from __future__ import annotations
 
 import torch
+from limner.runtime.errors import InputError
 from torch import nn
 
 from .channel_space import ChannelSpace
@@ -55,7 +56,7 @@ def _rows(idx: torch.Tensor, rows: int) -> torch.Tensor:
 def _prunable(net: nn.Module) -> Family:
     f = family(family_of(net))
     if f.spaces is None or f.shrunk is None:
-        raise ValueError(f"the {f.name} family states no channel spaces: it cannot be pruned")
+        raise InputError(f"the {f.name} family states no channel spaces: it cannot be pruned")
     return f
 
 
@@ -134,4 +135,4 @@ def prune(net: nn.Module, ratio: float, tolerance: float = 0.05) -> nn.Module:
                 lo = mid
         if abs(conv_weight_count(best) - target) <= tolerance * parent:
             return best
-    raise ValueError(f"cannot reach a {ratio:.0%} reduction within {tolerance:.0%} for this network")
+    raise InputError(f"cannot reach a {ratio:.0%} reduction within {tolerance:.0%} for this network")

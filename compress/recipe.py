@@ -6,6 +6,7 @@ import re
 from dataclasses import dataclass, field, fields, replace
 
 from limner.bench.int8 import Int8Spec
+from limner.runtime.errors import InputError
 
 from . import registry
 
@@ -30,7 +31,7 @@ class LossWeights:
         from .lossnet import STYLE_LAYERS
         for k in self.feature_layers + self.gram_layers:
             if k not in STYLE_LAYERS:
-                raise ValueError(f"loss layer {k!r}: one of {', '.join(STYLE_LAYERS)}")
+                raise InputError(f"loss layer {k!r}: one of {', '.join(STYLE_LAYERS)}")
 
 
 @dataclass
@@ -47,10 +48,10 @@ class StudentSpec:
         try:
             registry.knobs(self.family, self.knobs)  # validates the family, knob names and values
         except ValueError as e:
-            raise ValueError(f"student {self.name}: {e}") from None
+            raise InputError(f"student {self.name}: {e}") from None
         _check_loss(f"student {self.name}", self.loss)
         if self.steps < 1:
-            raise ValueError(f"student {self.name}: steps={self.steps} must be at least 1")
+            raise InputError(f"student {self.name}: steps={self.steps} must be at least 1")
 
     def losses(self, base: LossWeights) -> LossWeights:
         """The recipe's [loss] with this student's changes."""
@@ -62,7 +63,7 @@ def _check_loss(owner: str, loss: dict) -> None:
     known = {f.name for f in fields(LossWeights)}
     for k in loss:
         if k not in known:
-            raise ValueError(f"{owner}: loss.{k}: unknown loss setting (known: {', '.join(sorted(known))})")
+            raise InputError(f"{owner}: loss.{k}: unknown loss setting (known: {', '.join(sorted(known))})")
     LossWeights(**loss)  # validates the values
 
 
@@ -81,20 +82,20 @@ class PruneSpec:
     def __post_init__(self) -> None:
         _check_loss(f"prune {self.name}", self.loss)
         if self.steps < 1:
-            raise ValueError(f"prune {self.name}: steps={self.steps} must be at least 1")
+            raise InputError(f"prune {self.name}: steps={self.steps} must be at least 1")
         if not 0.05 <= self.ratio <= 0.9:
-            raise ValueError(f"prune {self.name}: ratio={self.ratio} must be between 0.05 and 0.9")
+            raise InputError(f"prune {self.name}: ratio={self.ratio} must be between 0.05 and 0.9")
         if self.rank not in ("auto", "l1", "norm_scale"):
-            raise ValueError(f"prune {self.name}: rank={self.rank!r}; expected 'auto', 'l1' or 'norm_scale'")
+            raise InputError(f"prune {self.name}: rank={self.rank!r}; expected 'auto', 'l1' or 'norm_scale'")
 
     def check_parent(self, parent_family: str) -> None:
         """The parent's family can be pruned, and `rank` is how that family ranks channels."""
         f = registry.family(parent_family)
         if f.spaces is None:
-            raise ValueError(f"prune {self.name}: parent {self.parent!r} is of the {f.name} family, "
+            raise InputError(f"prune {self.name}: parent {self.parent!r} is of the {f.name} family, "
                              "which cannot be pruned")
         if self.rank not in ("auto", f.rank):
-            raise ValueError(f"prune {self.name}: rank={self.rank!r} does not fit parent {self.parent!r}; "
+            raise InputError(f"prune {self.name}: rank={self.rank!r} does not fit parent {self.parent!r}; "
                              f"it is ranked by {f.rank!r}")
 
     def losses(self, base: LossWeights) -> LossWeights:
@@ -126,39 +127,39 @@ class Recipe:
 
     def __post_init__(self) -> None:
         if self.crop % 16 or self.crop < 64:
-            raise ValueError(f"crop={self.crop}: must be a multiple of 16, at least 64")
+            raise InputError(f"crop={self.crop}: must be a multiple of 16, at least 64")
         if self.target_frame:
             w, h = self.frame_size()
             if min(w, h) < self.crop:
-                raise ValueError(f"target_frame={self.target_frame!r}: smaller than crop={self.crop}")
+                raise InputError(f"target_frame={self.target_frame!r}: smaller than crop={self.crop}")
         if self.crops_per_frame < 1:
-            raise ValueError(f"crops_per_frame={self.crops_per_frame}: must be at least 1")
+            raise InputError(f"crops_per_frame={self.crops_per_frame}: must be at least 1")
         if not re.fullmatch(r"cpu|auto|cuda(:\d+)?", self.device):
-            raise ValueError(f"device={self.device!r}: one of cpu, cuda, cuda:N, auto")
+            raise InputError(f"device={self.device!r}: one of cpu, cuda, cuda:N, auto")
         names = [s.name for s in self.student] + [p.name for p in self.prune]
         dup = {n for n in names if names.count(n) > 1}
         if dup:
-            raise ValueError(f"candidate name {sorted(dup)[0]!r} appears twice in the recipe")
+            raise InputError(f"candidate name {sorted(dup)[0]!r} appears twice in the recipe")
         students = {s.name: s.family for s in self.student}
         if "teacher" in names:
-            raise ValueError("candidate name 'teacher' is reserved for the teacher")
+            raise InputError("candidate name 'teacher' is reserved for the teacher")
         for p in self.prune:
             if p.parent not in students and p.parent != "teacher":
-                raise ValueError(f"prune {p.name}: parent {p.parent!r} is neither a student in this recipe "
+                raise InputError(f"prune {p.name}: parent {p.parent!r} is neither a student in this recipe "
                                  "nor 'teacher'")
             p.check_parent(students.get(p.parent, "teacher"))
         for m in self.int8.models:
             if m not in names:
-                raise ValueError(f"int8.models: {m!r} is not a candidate in this recipe")
+                raise InputError(f"int8.models: {m!r} is not a candidate in this recipe")
         if not 0 <= self.calibration_fraction < 1 or not 0 <= self.held_out_fraction < 1 or \
                 self.calibration_fraction + self.held_out_fraction >= 1:
-            raise ValueError("calibration_fraction + held_out_fraction must leave sources for distillation")
+            raise InputError("calibration_fraction + held_out_fraction must leave sources for distillation")
 
     def frame_size(self) -> tuple[int, int]:
         try:
             w, h = (int(v) for v in self.target_frame.lower().split("x"))
         except ValueError:
-            raise ValueError(f"target_frame={self.target_frame!r}: expected WIDTHxHEIGHT, e.g. 640x360") from None
+            raise InputError(f"target_frame={self.target_frame!r}: expected WIDTHxHEIGHT, e.g. 640x360") from None
         if w % 8 or h % 8 or w < 64 or h < 64:
-            raise ValueError(f"target_frame={self.target_frame!r}: sides must be multiples of 8, at least 64")
+            raise InputError(f"target_frame={self.target_frame!r}: sides must be multiples of 8, at least 64")
         return w, h

@@ -11,10 +11,17 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Any, Callable
 
+from limner.runtime.errors import InputError
 from torch import nn
 
 from .channel_space import ChannelSpace
-from .students import Student, StudentKnobs, student_args, student_shrunk, student_spaces
+from .students import (
+    Student,
+    StudentKnobs,
+    student_args,
+    student_shrunk,
+    student_spaces,
+)
 from .teacher import Teacher, TeacherKnobs, teacher_args, teacher_shrunk, teacher_spaces
 
 
@@ -42,7 +49,7 @@ def families() -> list[str]:
 
 def family(name: str) -> Family:
     if name not in FAMILIES:
-        raise ValueError(f"unknown network family {name!r}; known: {', '.join(families())}")
+        raise InputError(f"unknown network family {name!r}; known: {', '.join(families())}")
     return FAMILIES[name]
 
 
@@ -52,7 +59,7 @@ def knobs(name: str, values: dict) -> Any:
     try:
         return f.knobs(**values)
     except TypeError as e:  # unknown knob names
-        raise ValueError(f"bad knobs for {name!r}: {e}") from None
+        raise InputError(f"bad knobs for {name!r}: {e}") from None
 
 
 def build(name: str, **values: Any) -> nn.Module:
@@ -70,5 +77,5 @@ def family_of(model: nn.Module) -> str:
     for name, f in FAMILIES.items():
         if type(model) is f.net:
             return name
-    raise ValueError(f"{type(model).__name__} is not a registered family")
+    raise InputError(f"{type(model).__name__} is not a registered family")
 

@@ -21,6 +21,7 @@ from __future__ import annotations
 from dataclasses import asdict, dataclass
 
 import torch
+from limner.runtime.errors import InputError
 from torch import nn
 
 from .channel_space import ChannelSpace
@@ -42,17 +43,17 @@ class StudentKnobs:
 
     def __post_init__(self) -> None:
         if not 0.05 <= self.width <= 2.0:
-            raise ValueError(f"width={self.width}: must be between 0.05 and 2.0")
+            raise InputError(f"width={self.width}: must be between 0.05 and 2.0")
         if not 0 <= self.blocks <= 16:
-            raise ValueError(f"blocks={self.blocks}: must be between 0 and 16")
+            raise InputError(f"blocks={self.blocks}: must be between 0 and 16")
         for name in ("kernel_in", "kernel_out"):
             k = getattr(self, name)
             if k not in (1, 3, 5, 7, 9):
-                raise ValueError(f"{name}={k}: must be one of 1, 3, 5, 7, 9")
+                raise InputError(f"{name}={k}: must be one of 1, 3, 5, 7, 9")
         if self.downscale not in (1, 2, 4):
-            raise ValueError(f"downscale={self.downscale}: must be 1, 2 or 4")
+            raise InputError(f"downscale={self.downscale}: must be 1, 2 or 4")
         if self.upsample not in UPSAMPLE_MODES:
-            raise ValueError(f"upsample={self.upsample!r}: must be one of {UPSAMPLE_MODES}")
+            raise InputError(f"upsample={self.upsample!r}: must be one of {UPSAMPLE_MODES}")
 
 
 def _round_channels(c: float) -> int:

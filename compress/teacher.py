@@ -11,6 +11,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import torch
+from limner.runtime.errors import InputError
 from torch import nn
 
 from .channel_space import ChannelSpace
@@ -25,9 +26,9 @@ class TeacherKnobs:
 
     def __post_init__(self) -> None:
         if len(self.channels) != 3 or min(self.channels) < 1:
-            raise ValueError(f"channels={self.channels}: three positive widths")
+            raise InputError(f"channels={self.channels}: three positive widths")
         if not 1 <= self.blocks <= 16:
-            raise ValueError(f"blocks={self.blocks}: must be between 1 and 16")
+            raise InputError(f"blocks={self.blocks}: must be between 1 and 16")
 
 
 def teacher_args(knobs: TeacherKnobs) -> dict:
@@ -54,7 +55,7 @@ class Teacher(nn.Module):
         hidden = list(hidden or [c3] * blocks)
         u1, u2 = up_channels or (c2, c1)
         if len(hidden) != blocks:
-            raise ValueError(f"hidden={hidden}: expected {blocks} widths, one per residual block")
+            raise InputError(f"hidden={hidden}: expected {blocks} widths, one per residual block")
         layers: list[nn.Module] = [conv(3, c1, 9, reflect=True), *_norm_relu(c1),
                                    conv(c1, c2, 3, 2, reflect=True), *_norm_relu(c2),
                                    conv(c2, c3, 3, 2, reflect=True), *_norm_relu(c3)]

@@ -17,18 +17,18 @@ from pathlib import Path
 import cv2
 import numpy as np
 import torch
-
 from limner.runtime import config as cfgmod
-
-from . import checkpoint as ckptmod
-from .distributed import World, device_for, init, train_device
-from .content import ContentSet, load_content, sample_batch
-from .losses import content_loss, gram, style_loss_layer, tv_loss
-from .lossnet import CONTENT_LAYER, SOURCES, STYLE_LAYERS, build_loss_net
+from limner.runtime.errors import InputError
 from limner.runtime.outputs import check_out_folder
 from limner.runtime.progress import Progress
-from .registry import build
 from limner.runtime.styles import style_image
+
+from . import checkpoint as ckptmod
+from .content import ContentSet, load_content, sample_batch
+from .distributed import World, device_for, init, train_device
+from .losses import content_loss, gram, style_loss_layer, tv_loss
+from .lossnet import CONTENT_LAYER, SOURCES, STYLE_LAYERS, build_loss_net
+from .registry import build
 
 
 @dataclass
@@ -56,20 +56,20 @@ class TrainConfig:
 
     def __post_init__(self) -> None:
         if self.size < 32 or self.size % 4:
-            raise ValueError(f"size={self.size}: must be a multiple of 4, at least 32")
+            raise InputError(f"size={self.size}: must be a multiple of 4, at least 32")
         for k in ("batch", "steps", "checkpoint_every", "preview_every"):
             if getattr(self, k) < 1:
-                raise ValueError(f"{k}={getattr(self, k)}: must be at least 1")
+                raise InputError(f"{k}={getattr(self, k)}: must be at least 1")
         if len(self.style_layer_weights) != len(STYLE_LAYERS):
-            raise ValueError(f"style_layer_weights: need {len(STYLE_LAYERS)} values "
+            raise InputError(f"style_layer_weights: need {len(STYLE_LAYERS)} values "
                              f"({', '.join(STYLE_LAYERS)}), got {len(self.style_layer_weights)}")
         if self.loss_net not in SOURCES:
-            raise ValueError(f"loss_net={self.loss_net!r}: must be one of {', '.join(SOURCES)}")
+            raise InputError(f"loss_net={self.loss_net!r}: must be one of {', '.join(SOURCES)}")
         if self.content_layer not in STYLE_LAYERS:
-            raise ValueError(f"content_layer={self.content_layer!r}: must be one of {', '.join(STYLE_LAYERS)}")
+            raise InputError(f"content_layer={self.content_layer!r}: must be one of {', '.join(STYLE_LAYERS)}")
 
 
-class TrainError(Exception):
+class TrainError(InputError):
     pass
 
 

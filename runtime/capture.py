@@ -6,17 +6,18 @@ from pathlib import Path
 
 import cv2
 
-from .progress import Progress
+from .errors import InputError
 from .outputs import check_out_folder
+from .progress import Progress
 from .sources import open_source
 
 
 def capture(source: str | None, frames: int, out: Path, every: int = 1, quality: int = 95) -> list[Path]:
     """Save `frames` frames (every `every`-th frame read) as JPEGs named frame_000001.jpg ..."""
     if frames < 1:
-        raise ValueError(f"--frames {frames}: must be at least 1")
+        raise InputError(f"--frames {frames}: must be at least 1")
     if every < 1:
-        raise ValueError(f"--every {every}: must be at least 1")
+        raise InputError(f"--every {every}: must be at least 1")
     out = Path(out)
     check_out_folder(out)
     src = open_source(source)  # a missing camera or unreadable file fails before out is made

@@ -11,6 +11,8 @@ import sys
 from pathlib import Path
 from typing import Callable
 
+from .errors import InputError
+
 # OpenCV's and FFmpeg's own console warnings ("moov atom not found", "global cap_v4l.cpp ...")
 # would reach the operator beside Limner's one-line messages; keep only their errors. Set
 # before cv2 is first imported (the subcommands import it lazily); an operator's own
@@ -164,7 +166,7 @@ def _default_recipe() -> Path:
     here = Path(__file__).resolve().parents[1] / "configs" / "compress" / "default.toml"
     if here.is_file():
         return here
-    raise ValueError("no --recipe given and configs/compress/default.toml is not beside this install")
+    raise InputError("no --recipe given and configs/compress/default.toml is not beside this install")
 
 
 def _add_bench(p: argparse.ArgumentParser) -> None:
@@ -301,23 +303,12 @@ def _version() -> str:
     return f"limner {v} (model format {FORMAT_VERSION})"
 
 
-def _known_errors() -> tuple[type[BaseException], ...]:
-    """Error types whose message is already one clear line for the user."""
-    from limner.runtime.config import ConfigError
-    from limner.runtime.model import ModelError
-    from limner.runtime.sources import SourceError
+def _for_the_user(e: BaseException) -> bool:
+    """An error whose message is one clear line for the user (runtime/errors.py): a value they
+    gave, or their files and disk. Anything else is Limner's defect and keeps its traceback."""
+    from limner.runtime.errors import InputError, is_user_os_error
 
-    errs: list[type[BaseException]] = [ConfigError, ModelError, SourceError, ValueError,
-                                       FileNotFoundError, OSError]
-    mods = ("limner.bench.run:BenchError", "limner.bench.pick:PickError",
-            "limner.compress.train:TrainError", "limner.compress.pipeline:CompressError",
-            "limner.compress.checkpoint:CheckpointError", "limner.compress.distributed:DistributedError",
-            "limner.compress.lossnet:LossNetError", "limner.compress.content:ContentError")
-    for spec in mods:  # only those already imported: never import torch just for this
-        mod, cls = spec.split(":")
-        if mod in sys.modules:
-            errs.append(getattr(sys.modules[mod], cls))
-    return tuple(errs)
+    return isinstance(e, InputError) or is_user_os_error(e)
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -341,7 +332,7 @@ def main(argv: list[str] | None = None) -> int:
         print(f"\nlimner {a.command}: interrupted", file=sys.stderr)
         return 130
     except Exception as e:
-        if isinstance(e, _known_errors()):
+        if _for_the_user(e):
             print(f"limner {a.command}: error: {_one_line(e)}", file=sys.stderr)
             return 1
         raise

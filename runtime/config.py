@@ -12,6 +12,8 @@ import typing
 from pathlib import Path
 from typing import Any, TypeVar
 
+from .errors import InputError
+
 if sys.version_info >= (3, 11):
     import tomllib
 else:  # pragma: no cover - Python 3.10
@@ -20,7 +22,7 @@ else:  # pragma: no cover - Python 3.10
 T = TypeVar("T")
 
 
-class ConfigError(ValueError):
+class ConfigError(InputError):
     pass
 
 

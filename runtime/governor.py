@@ -10,13 +10,15 @@ from __future__ import annotations
 
 from collections import deque
 
+from .errors import InputError
+
 
 class Governor:
     def __init__(self, ladder: list[tuple[int, int]], target_fps: float, *, enabled: bool = True,
                  start: int | None = None, patience: int = 15, headroom: float = 1.15,
                  cooldown_s: float = 3.0) -> None:
         if not ladder:
-            raise ValueError("the resolution ladder is empty")
+            raise InputError("the resolution ladder is empty")
         self.ladder = sorted(ladder, key=lambda wh: wh[0] * wh[1])
         self.target, self.enabled = target_fps, enabled
         self.index = len(self.ladder) - 1 if start is None else start

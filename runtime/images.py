@@ -9,6 +9,8 @@ from pathlib import Path
 import cv2
 import numpy as np
 
+from .errors import InputError
+
 IMAGE_EXTS = {".jpg", ".jpeg", ".png", ".bmp", ".tif", ".tiff", ".webp"}
 
 
@@ -17,10 +19,10 @@ def parse_resolution(text: str) -> tuple[int, int]:
     try:
         w, h = (int(v) for v in text.lower().split("x"))
         if w < 16 or h < 16:
-            raise ValueError
+            raise InputError
         return w, h
     except ValueError:
-        raise ValueError(f"resolution {text!r}: expected WIDTHxHEIGHT, e.g. 640x360") from None
+        raise InputError(f"resolution {text!r}: expected WIDTHxHEIGHT, e.g. 640x360") from None
 
 
 def list_images(specs: list[str]) -> list[Path]:
@@ -34,14 +36,14 @@ def list_images(specs: list[str]) -> list[Path]:
         else:
             raise FileNotFoundError(f"{s}: no such image or folder")
     if not out:
-        raise ValueError(f"no images found in {', '.join(specs)}")
+        raise InputError(f"no images found in {', '.join(specs)}")
     return out
 
 
 def read_image(path: Path) -> np.ndarray:
     img = cv2.imread(str(path), cv2.IMREAD_COLOR)
     if img is None:
-        raise ValueError(f"{path}: cannot be read as an image")
+        raise InputError(f"{path}: cannot be read as an image")
     return img
 
 
@@ -62,7 +64,7 @@ def crop_to_multiple(frame: np.ndarray, multiple: int) -> np.ndarray:
     h, w = frame.shape[:2]
     nh, nw = h - h % multiple, w - w % multiple
     if nh == 0 or nw == 0:
-        raise ValueError(f"frame {w}x{h} is smaller than the model's size multiple {multiple}")
+        raise InputError(f"frame {w}x{h} is smaller than the model's size multiple {multiple}")
     y, x = (h - nh) // 2, (w - nw) // 2
     return frame[y:y + nh, x:x + nw]
 

@@ -10,9 +10,9 @@ import logging
 from pathlib import Path
 
 from .bundled import DEFAULT_MODEL
+from .live_loop import Live, LiveStats
 from .live_options import LiveOptions
 from .model import load_model
-from .live_loop import Live, LiveStats
 from .settings import PlayItem, ShowConfig, load_show
 from .sinks import Window, display_available
 from .sources import DEMO, apply_camera_locks, open_source

@@ -8,12 +8,11 @@ then applies temporal smoothing, the flash limiter, the window, recording and sn
 """
 from __future__ import annotations
 
-from collections import deque
-
 import logging
 import signal
 import threading
 import time
+from collections import deque
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable
@@ -23,15 +22,15 @@ import numpy as np
 
 from .capture_thread import Capture
 from .flash import FlashLimiter
-from .images import cover_crop, crop_to_multiple, letterbox
 from .governor import Governor
+from .images import cover_crop, crop_to_multiple, letterbox
 from .inflight import InFlight, Output
 from .playlist import Playlist, is_open
 from .present import holding_card, present
+from .session import default_threads
 from .settings import ShowConfig
 from .sinks import VideoFile, Window
 from .sources import FrameSource
-from .session import default_threads
 from .unattended import Heartbeat, Snapshots, rss_mb
 
 log = logging.getLogger("limner.live")

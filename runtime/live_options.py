@@ -8,6 +8,8 @@ import argparse
 import typing
 from dataclasses import dataclass, field, fields
 
+from .errors import InputError
+
 
 def _opt(default, help: str, metavar: str | None = None, flag: bool = True):
     return field(default=default, metadata={"help": help, "metavar": metavar, "flag": flag})
@@ -39,7 +41,7 @@ class LiveOptions:
 
     def __post_init__(self) -> None:
         if self.frames < 0:
-            raise ValueError(f"--frames {self.frames}: must be 0 or more")
+            raise InputError(f"--frames {self.frames}: must be 0 or more")
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:

@@ -7,6 +7,8 @@ from __future__ import annotations
 import json
 from dataclasses import dataclass, field
 
+from .errors import InputError
+
 FORMAT_VERSION = 1
 PREFIX = "limner."
 ROLES = ("teacher", "student", "pruned")
@@ -14,7 +16,7 @@ PRECISIONS = ("fp32", "int8")
 REQUIRED = ("format", "role", "precision", "style", "parent", "size_multiple", "loss_network")
 
 
-class MetadataError(ValueError):
+class MetadataError(InputError):
     pass
 
 

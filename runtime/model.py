@@ -11,15 +11,15 @@ from pathlib import Path
 import numpy as np
 import onnxruntime as ort
 
+from .errors import InputError
+from .hashing import file_sha256
 from .metadata import MetadataError, ModelMeta
 from .session import make_session
-from .hashing import file_sha256
-
 
 MIN_SIDE = 16  # below this the nets' reflection pads and strides run out of pixels
 
 
-class ModelError(Exception):
+class ModelError(InputError):
     pass
 
 

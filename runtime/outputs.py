@@ -8,20 +8,22 @@ import tempfile
 from pathlib import Path
 from typing import Any
 
+from .errors import InputError
+
 
 def check_out_folder(path: Path) -> None:
     """`path` must be a folder or creatable as one: not an existing file, not under a file,
     and (for users other than root) under a writable folder. Raises ValueError naming it."""
     path = Path(path)
     if path.exists() and not path.is_dir():
-        raise ValueError(f"{path}: exists and is not a folder")
+        raise InputError(f"{path}: exists and is not a folder")
     ancestor = path
     while not ancestor.exists():
         ancestor = ancestor.parent
     if not ancestor.is_dir():
-        raise ValueError(f"{path}: cannot be made, {ancestor} is a file")
+        raise InputError(f"{path}: cannot be made, {ancestor} is a file")
     if not os.access(ancestor, os.W_OK | os.X_OK):
-        raise ValueError(f"{path}: cannot be made, {ancestor} is not writable")
+        raise InputError(f"{path}: cannot be made, {ancestor} is not writable")
 
 
 def atomic_write_bytes(path: Path, write: Any) -> None:

@@ -7,6 +7,7 @@ import os
 import time
 from dataclasses import dataclass
 
+from .errors import InputError
 from .images import lcm_all
 from .model import Model, ModelError, load_model
 from .settings import PlayItem
@@ -40,7 +41,7 @@ class Playlist:
     def __init__(self, items: list[PlayItem], threads: int, crossfade_s: float,
                  max_step: float) -> None:
         if not items:
-            raise ValueError("the playlist is empty")
+            raise InputError("the playlist is empty")
         self.threads, self.crossfade_s, self.max_step = threads, crossfade_s, max_step
         self.loaded = [Loaded(i, load_model(i.model, threads), os.path.getmtime(i.model)) for i in items]
         self.index = 0

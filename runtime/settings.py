@@ -6,6 +6,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from . import config as cfgmod
+from .errors import InputError
 
 _HOURS = re.compile(r"^([01]\d|2[0-3]):([0-5]\d)-([01]\d|2[0-4]):([0-5]\d)$")
 
@@ -27,7 +28,7 @@ class CaptureSettings:
 
     def __post_init__(self) -> None:
         if self.stall_s <= 0 or self.fps <= 0 or self.pace_fps < 0:
-            raise ValueError("capture: stall_s and fps must be positive, pace_fps >= 0")
+            raise InputError("capture: stall_s and fps must be positive, pace_fps >= 0")
 
 
 @dataclass
@@ -47,15 +48,15 @@ class InferenceSettings:
         for r in self.ladder + ([self.resolution] if self.resolution else []):
             parse_resolution(r)
         if self.fit not in ("crop", "letterbox"):
-            raise ValueError(f"inference.fit={self.fit!r}: crop or letterbox")
+            raise InputError(f"inference.fit={self.fit!r}: crop or letterbox")
         if not 0 <= self.smoothing <= 0.9:
-            raise ValueError(f"inference.smoothing={self.smoothing}: between 0 and 0.9")
+            raise InputError(f"inference.smoothing={self.smoothing}: between 0 and 0.9")
         if self.threads < 0:
-            raise ValueError(f"inference.threads={self.threads}: 0 (all cores) or more")
+            raise InputError(f"inference.threads={self.threads}: 0 (all cores) or more")
         if self.workers < 0:
-            raise ValueError(f"inference.workers={self.workers}: 0 (auto) or more")
+            raise InputError(f"inference.workers={self.workers}: 0 (auto) or more")
         if self.target_fps <= 0:
-            raise ValueError(f"inference.target_fps={self.target_fps}: must be positive")
+            raise InputError(f"inference.target_fps={self.target_fps}: must be positive")
 
     def sizes(self) -> list[tuple[int, int]]:
         from .images import parse_resolution
@@ -78,7 +79,7 @@ class DisplaySettings:
 
     def __post_init__(self) -> None:
         if self.rotate not in (0, 90, 180, 270):
-            raise ValueError(f"display.rotate={self.rotate}: 0, 90, 180 or 270")
+            raise InputError(f"display.rotate={self.rotate}: 0, 90, 180 or 270")
         if self.size:
             from .images import parse_resolution
             parse_resolution(self.size)
@@ -93,7 +94,7 @@ class SafetySettings:
 
     def __post_init__(self) -> None:
         if self.display_width_m <= 0 or self.viewing_distance_m <= 0:
-            raise ValueError("safety: display_width_m and viewing_distance_m must be positive")
+            raise InputError("safety: display_width_m and viewing_distance_m must be positive")
 
 
 @dataclass
@@ -117,9 +118,9 @@ class PlayItem:
 
     def __post_init__(self) -> None:
         if self.seconds <= 0:
-            raise ValueError(f"play {self.model}: seconds={self.seconds} must be positive")
+            raise InputError(f"play {self.model}: seconds={self.seconds} must be positive")
         if not 0 <= self.strength <= 1:
-            raise ValueError(f"play {self.model}: strength={self.strength} must be between 0 and 1")
+            raise InputError(f"play {self.model}: strength={self.strength} must be between 0 and 1")
 
 
 @dataclass
@@ -139,11 +140,11 @@ class ShowConfig:
     def __post_init__(self) -> None:
         for h in self.hours:
             if not _HOURS.match(h):
-                raise ValueError(f"hours: {h!r} is not HH:MM-HH:MM")
+                raise InputError(f"hours: {h!r} is not HH:MM-HH:MM")
         if self.closed not in ("card", "blank"):
-            raise ValueError(f"closed={self.closed!r}: card or blank")
+            raise InputError(f"closed={self.closed!r}: card or blank")
         if self.crossfade_s < 0:
-            raise ValueError(f"crossfade_s={self.crossfade_s}: must be >= 0")
+            raise InputError(f"crossfade_s={self.crossfade_s}: must be >= 0")
 
 
 def load_show(path: Path) -> ShowConfig:

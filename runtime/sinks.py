@@ -8,6 +8,8 @@ from pathlib import Path
 import cv2
 import numpy as np
 
+from .errors import InputError
+
 WINDOW = "limner"
 # Qt's X11 shared-memory images intermittently left the window black on Xvfb (measured
 # here: 2 of 6 starts without this, 8 of 8 with it); plain X11 puts cost little at
@@ -89,7 +91,7 @@ class VideoFile:
         self.path.parent.mkdir(parents=True, exist_ok=True)
         ext = self.path.suffix.lower()
         if ext not in (".mp4", ".mov", ".avi", ".mkv"):
-            raise ValueError(f"{self.path}: output must end in .mp4, .mov, .avi or .mkv")
+            raise InputError(f"{self.path}: output must end in .mp4, .mov, .avi or .mkv")
         self.fourcc = cv2.VideoWriter_fourcc(*("MJPG" if ext in (".avi", ".mkv") else "mp4v"))
         self.tmp = self.path.with_name(f".{self.path.stem}.partial{ext}")
         self.fps = fps

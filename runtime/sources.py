@@ -17,10 +17,12 @@ os.environ.setdefault("OPENCV_VIDEOIO_V4L_SELECT_TIMEOUT", "2000")
 
 import cv2  # noqa: E402
 
+from .errors import InputError
+
 DEMO = "demo"
 
 
-class SourceError(Exception):
+class SourceError(InputError):
     pass
 
 

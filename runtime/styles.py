@@ -11,6 +11,8 @@ from typing import Callable
 import cv2
 import numpy as np
 
+from .errors import InputError
+
 Palette = list[tuple[int, int, int]]  # BGR
 
 
@@ -87,7 +89,7 @@ def style_image(name_or_path: str) -> tuple[np.ndarray, str]:
         return STYLES[name_or_path](), name_or_path
     img = cv2.imread(name_or_path, cv2.IMREAD_COLOR)
     if img is None:
-        raise ValueError(f"{name_or_path}: not a bundled style ({', '.join(STYLES)}) "
+        raise InputError(f"{name_or_path}: not a bundled style ({', '.join(STYLES)}) "
                          "and not a readable image")
     from pathlib import Path
     return img, Path(name_or_path).stem

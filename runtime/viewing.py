@@ -5,6 +5,8 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
+from .errors import InputError
+
 
 @dataclass(frozen=True)
 class ViewingGeometry:
@@ -14,7 +16,7 @@ class ViewingGeometry:
 
     def __post_init__(self) -> None:
         if self.display_width_m <= 0 or self.viewing_distance_m <= 0:
-            raise ValueError(f"viewing geometry must be positive, got width "
+            raise InputError(f"viewing geometry must be positive, got width "
                              f"{self.display_width_m} m at {self.viewing_distance_m} m")
 
     def pixels_per_degree(self, image_width_px: int) -> float:

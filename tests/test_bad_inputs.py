@@ -13,7 +13,6 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable
 
-import numpy as np
 import pytest
 
 from conftest import PY, REPO
@@ -190,3 +189,31 @@ def test_bad_input_ends_in_one_clear_line(case: Case, tmp_path: Path) -> None:
     assert case.names(tmp_path) in last, last
     if case.leaves_nothing:
         assert not (tmp_path / case.leaves_nothing).exists(), f"{case.leaves_nothing} left behind"
+
+
+@pytest.mark.parametrize("error, one_line", [
+    (lambda: __import__("limner.runtime.errors", fromlist=["InputError"]).InputError("--threads -1: bad"), True),
+    (lambda: OSError(28, "No space left on device", "out/report.md"), True),
+    (lambda: PermissionError(13, "Permission denied", "/root/x"), True),
+    (lambda: ValueError("operands could not be broadcast"), False),   # a defect: traceback kept
+    (lambda: OSError(5, "Input/output error"), False),
+    (lambda: KeyError("rows"), False),
+])
+def test_only_the_users_errors_become_one_line(monkeypatch, capsys, error, one_line):
+    """runtime/errors.py: a value the user gave, or their files and disk, is one line and
+    exit 1; any other exception is Limner's defect and must keep its traceback (before the
+    fix every ValueError and OSError became one line)."""
+    from limner.runtime import cli
+
+    def boom(a):
+        raise error()
+
+    monkeypatch.setattr(cli, "SUBCOMMANDS", [(n, add, boom) for n, add, _ in cli.SUBCOMMANDS])
+    if one_line:
+        assert cli.main(["pick", "nowhere.json"]) == 1
+        err = capsys.readouterr().err.strip().splitlines()
+        assert len(err) == 1 and err[0].startswith("limner pick: error: ")
+        assert "Errno" not in err[0]
+    else:
+        with pytest.raises(type(error())):
+            cli.main(["pick", "nowhere.json"])

@@ -3,7 +3,6 @@ licence, nothing of the excluded kinds, and the bundled models never saw held-ou
 from __future__ import annotations
 
 import re
-from pathlib import Path
 
 import cv2
 

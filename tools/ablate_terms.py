@@ -117,7 +117,7 @@ def main() -> None:
             w = csv.DictWriter(f, fieldnames=list(rows[0]))
             w.writeheader()
             w.writerows(rows)
-    print(f"\n| variant | MS-SSIM mean | S-CIELAB dE00 mean |\n|---|---|---|")
+    print("\n| variant | MS-SSIM mean | S-CIELAB dE00 mean |\n|---|---|---|")
     for row in rows:
         print(f"| {row['variant']} | {row['ms_ssim_mean']:.3f} | {row['delta_e_mean']:.2f} |")
 
