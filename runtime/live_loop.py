@@ -201,27 +201,13 @@ class Live:
             self.snapshot_requested.set()
 
     def run(self) -> LiveStats:
-        old = {}
-
-        def on_stop(signum, frame):
-            self.stop.set()
-
-        def on_snap(signum, frame):
-            self.snapshot_requested.set()
-
-        if threading.current_thread() is threading.main_thread():
-            old = {s: signal.signal(s, on_stop) for s in (signal.SIGINT, signal.SIGTERM)}
-            if hasattr(signal, "SIGUSR1"):
-                old[signal.SIGUSR1] = signal.signal(signal.SIGUSR1, on_snap)
+        """Start capture and inference, show each output as it comes, and stop cleanly on
+        q, a signal, the end of the source or --frames."""
+        old = self._install_signals()
         self.capture.start()
         for t in self._workers:
             t.start()
-        t_first, t_begin = None, None
-        last_stats = last_shown = time.monotonic()
-        recent: list[float] = []
-        prev: np.ndarray | None = None
-        seq0 = None
-        a = self.show.inference.smoothing
+        view = _View(last_stats=time.monotonic(), last_shown=time.monotonic())
         try:
             while not self.stop.is_set():
                 out = self.inflight.next(timeout=0.05)
@@ -230,72 +216,99 @@ class Live:
                 self.heartbeat.beat()
                 self._trigger_file()
                 if out is not None:
-                    t_now = time.monotonic()
-                    if out.seq >= 0:
-                        seq0 = out.seq if seq0 is None else seq0
-                        self.stats.captured = out.seq - seq0 + 1  # source frames this run spanned
-                        self.governor.observe(out.busy_s / self.workers, t_now)
-                        self.playlist.tick(t_now, t_now - last_shown)
-                    last_shown = t_now
-                    image = out.image
-                    if a > 0 and out.seq >= 0 and prev is not None and prev.shape == image.shape:
-                        image = cv2.addWeighted(image, 1.0 - a, prev, a, 0.0)
-                    prev = image
-                    # the flash limiter runs here, beside the next inferences, not after them
-                    image = self.limiter(image, time.monotonic())
-                    now = time.monotonic()
-                    if t_first is None:
-                        t_first = t_begin = now
-                        self.stats.first_frame_s = now - self.t_start
-                    self.stats.frames += 1
-                    if out.seq >= 0:
-                        self.stats.add_latency((now - out.t_capture) * 1000)
-                    key = f"{out.size[0]}x{out.size[1]}"
-                    self.stats.sizes[key] = self.stats.sizes.get(key, 0) + 1
-                    recent.append(now)
-                    if self.writer:
-                        self.writer.write(image)
-                    if self.snapshot_requested.is_set():
-                        self.snapshot_requested.clear()
-                        self.snapshots.take(image)
-                    if self.window:
-                        text = None
-                        if self.overlay:
-                            fps = len([t for t in recent if now - t < 1.0])
-                            text = f"{fps} fps  {out.size[0]}x{out.size[1]}"
-                        self._key(self.window.show(present(image, self.show.display, text)))
-                    recent = [t for t in recent if now - t < 1.0]
+                    self._show(out, view)
                     if self.max_frames and self.stats.frames >= self.max_frames:
                         break
                 elif self.window:
                     self._key(self.window.poll())  # keep the last good output on screen
-                if time.monotonic() - last_stats >= self.show.output.stats_every_s:
-                    last_stats = time.monotonic()
-                    lat = list(self.stats.recent_ms)
-                    log.info("stats: %.1f fps, latency p95 %.0f ms, size %s, capture %s, RSS %.0f MB",
-                             len([t for t in recent if last_stats - t < 1.0]),
-                             float(np.percentile(lat, 95)) if lat else 0.0,
-                             "x".join(map(str, self.governor.size)), self.capture.state, rss_mb())
+                self._log_stats(view)
         finally:
-            end = time.monotonic()
-            self.stop.set()
-            # let the current inferences finish: tearing down onnxruntime under a running
-            # session crashes the process
-            for t in self._workers:
-                t.join(timeout=120)
-            self.capture.stop()
-            if self.writer:
-                self.writer.close()
-                self.stats.output = str(self.writer.path)
-            if self.window:
-                self.window.close()
-            for s, h in old.items():
-                signal.signal(s, h)
-            self.stats.seconds = (end - t_begin) if t_begin else 0.0
-            self.stats.rss_end_mb = rss_mb()
-            self.stats.reconnects = self.capture.reconnects
-            self.stats.resolution_changes = self.governor.changes
+            self._shut_down(old, time.monotonic(), view.t_begin)
         return self.stats
+
+    def _install_signals(self) -> dict:
+        """SIGINT / SIGTERM stop the show, SIGUSR1 takes a snapshot; returns the old handlers."""
+        if threading.current_thread() is not threading.main_thread():
+            return {}
+        old = {s: signal.signal(s, lambda signum, frame: self.stop.set()) for s in (signal.SIGINT, signal.SIGTERM)}
+        if hasattr(signal, "SIGUSR1"):
+            old[signal.SIGUSR1] = signal.signal(signal.SIGUSR1, lambda signum, frame: self.snapshot_requested.set())
+        return old
+
+    def _show(self, out: Output, view: _View) -> None:
+        """One output: smoothing, the flash limiter, stats, recording, snapshot, window."""
+        t_now = time.monotonic()
+        if out.seq >= 0:
+            view.seq0 = out.seq if view.seq0 is None else view.seq0
+            self.stats.captured = out.seq - view.seq0 + 1  # source frames this run spanned
+            self.governor.observe(out.busy_s / self.workers, t_now)
+            self.playlist.tick(t_now, t_now - view.last_shown)
+        view.last_shown = t_now
+        image = out.image
+        a = self.show.inference.smoothing
+        if a > 0 and out.seq >= 0 and view.prev is not None and view.prev.shape == image.shape:
+            image = cv2.addWeighted(image, 1.0 - a, view.prev, a, 0.0)
+        view.prev = image
+        # the flash limiter runs here, beside the next inferences, not after them
+        image = self.limiter(image, time.monotonic())
+        now = time.monotonic()
+        if view.t_begin is None:
+            view.t_begin = now
+            self.stats.first_frame_s = now - self.t_start
+        self.stats.frames += 1
+        if out.seq >= 0:
+            self.stats.add_latency((now - out.t_capture) * 1000)
+        key = f"{out.size[0]}x{out.size[1]}"
+        self.stats.sizes[key] = self.stats.sizes.get(key, 0) + 1
+        view.recent = [t for t in view.recent if now - t < 1.0] + [now]
+        if self.writer:
+            self.writer.write(image)
+        if self.snapshot_requested.is_set():
+            self.snapshot_requested.clear()
+            self.snapshots.take(image)
+        if self.window:
+            text = f"{len(view.recent)} fps  {out.size[0]}x{out.size[1]}" if self.overlay else None
+            self._key(self.window.show(present(image, self.show.display, text)))
+
+    def _log_stats(self, view: _View) -> None:
+        if time.monotonic() - view.last_stats < self.show.output.stats_every_s:
+            return
+        view.last_stats = time.monotonic()
+        lat = list(self.stats.recent_ms)
+        log.info("stats: %.1f fps, latency p95 %.0f ms, size %s, capture %s, RSS %.0f MB",
+                 len([t for t in view.recent if view.last_stats - t < 1.0]),
+                 float(np.percentile(lat, 95)) if lat else 0.0,
+                 "x".join(map(str, self.governor.size)), self.capture.state, rss_mb())
+
+    def _shut_down(self, old_handlers: dict, end: float, t_begin: float | None) -> None:
+        self.stop.set()
+        # let the current inferences finish: tearing down onnxruntime under a running
+        # session crashes the process
+        for t in self._workers:
+            t.join(timeout=120)
+        self.capture.stop()
+        if self.writer:
+            self.writer.close()
+            self.stats.output = str(self.writer.path)
+        if self.window:
+            self.window.close()
+        for s, h in old_handlers.items():
+            signal.signal(s, h)
+        self.stats.seconds = (end - t_begin) if t_begin else 0.0
+        self.stats.rss_end_mb = rss_mb()
+        self.stats.reconnects = self.capture.reconnects
+        self.stats.resolution_changes = self.governor.changes
+
+
+@dataclass
+class _View:
+    """What the presenting thread remembers between outputs."""
+    last_stats: float
+    last_shown: float
+    t_begin: float | None = None       # when the first output was shown
+    seq0: int | None = None            # the first source frame shown
+    prev: np.ndarray | None = None     # the last output (smoothing)
+    recent: list[float] = field(default_factory=list)  # show times in the last second
 
 
 def _blend_strength(y: np.ndarray, x: np.ndarray, strength: float) -> np.ndarray:
