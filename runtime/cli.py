@@ -7,7 +7,9 @@ from __future__ import annotations
 
 import argparse
 import os
+import signal
 import sys
+import threading
 from pathlib import Path
 from typing import Callable
 
@@ -150,11 +152,11 @@ def _run_compress(a: argparse.Namespace) -> int:
     main = world_from_env().rank == 0
     try:
         manifest = compress(a.teacher, a.content, recipe, a.out, calibration=a.calibration)
-    except KeyboardInterrupt:
+    except KeyboardInterrupt as e:
         if main:
             print(f"\ninterrupted; the current candidate's checkpoint is saved under {a.out / 'work'}. "
                   "Run the same command again to continue.", file=sys.stderr)
-        return 130
+        return _stop_code(e)
     finally:
         shutdown()
     if main:
@@ -311,6 +313,22 @@ def _for_the_user(e: BaseException) -> bool:
     return isinstance(e, InputError) or is_user_os_error(e)
 
 
+class Terminated(KeyboardInterrupt):
+    """SIGTERM, raised where the program is, so that it ends as Ctrl-C does: work saved
+    where a subcommand saves it, one line, no traceback (`limner live` stops its show
+    cleanly on both instead)."""
+    signum = signal.SIGTERM
+
+
+def _on_term(signum: int, frame: object) -> None:
+    raise Terminated()
+
+
+def _stop_code(e: KeyboardInterrupt) -> int:
+    """128 + the signal number, as a shell reports a process ended by it (130 Ctrl-C, 143 TERM)."""
+    return 128 + int(getattr(e, "signum", signal.SIGINT))
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     a = parser.parse_args(argv)
@@ -318,6 +336,8 @@ def main(argv: list[str] | None = None) -> int:
         parser.print_help()
         return 2
     run = {n: r for n, _, r in SUBCOMMANDS}[a.command]
+    if threading.current_thread() is threading.main_thread():
+        signal.signal(signal.SIGTERM, _on_term)
     try:
         return run(a)
     except ModuleNotFoundError as e:
@@ -327,10 +347,10 @@ def main(argv: list[str] | None = None) -> int:
                   f"pip install 'limner[compress]'{alone}", file=sys.stderr)
             return 2
         raise
-    except KeyboardInterrupt:
+    except KeyboardInterrupt as e:
         # subcommands that save work on Ctrl-C (train, compress) say how to continue first
         print(f"\nlimner {a.command}: interrupted", file=sys.stderr)
-        return 130
+        return _stop_code(e)
     except Exception as e:
         if _for_the_user(e):
             print(f"limner {a.command}: error: {_one_line(e)}", file=sys.stderr)
