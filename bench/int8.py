@@ -14,6 +14,7 @@ onnx and onnxruntime.quantization load only when used (a board runs shows withou
 from __future__ import annotations
 
 import json
+import logging
 import platform
 import tempfile
 from collections.abc import Sequence
@@ -209,6 +210,9 @@ def quantize(fp32_path: Path, out_path: Path, calib: list[np.ndarray], check: li
     import onnx
     from onnxruntime.quantization import quant_pre_process
 
+    # its symbolic shape inference warns about the in-graph padding's dimensions ("Unable to
+    # determine if width <= ...") on every model: true of our graphs, and no use to the user
+    logging.getLogger("onnxruntime.tools.symbolic_shape_infer").setLevel(logging.ERROR)
     types = TYPES[detect_types() if spec.types == "auto" else spec.types]
     with tempfile.TemporaryDirectory() as tmp:
         tmp = Path(tmp)

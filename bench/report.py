@@ -3,10 +3,14 @@ from __future__ import annotations
 
 import csv
 import json
+import os
+import shutil
+import tempfile
 from pathlib import Path
 
 import cv2
 import numpy as np
+from limner.runtime.errors import InputError
 
 from .axes import QUALITY, speed_at
 from .plots import pareto_plot
@@ -130,13 +134,34 @@ def sample_grid(inp: np.ndarray, samples: dict[str, np.ndarray], rep: dict, cols
 
 
 def write_all(rep: dict, out: Path, samples: dict[str, np.ndarray], sample_input: np.ndarray) -> None:
+    """Every report file, or none: they are written into a hidden folder inside `out` and
+    moved into place only when all are complete (a full disk leaves the previous report, or
+    no folder it made)."""
+    made = not out.exists()
     out.mkdir(parents=True, exist_ok=True)
-    (out / "report.json").write_text(json.dumps(rep, indent=1))
-    rows = flat_rows(rep)
-    with (out / "report.csv").open("w", newline="") as f:
-        w = csv.DictWriter(f, fieldnames=list(rows[0]))
-        w.writeheader()
-        w.writerows(rows)
-    cv2.imwrite(str(out / "samples.png"), sample_grid(sample_input, samples, rep))
-    pareto_plot(rep, out / "pareto.png")
-    (out / "report.md").write_text(markdown(rep))
+    stage = Path(tempfile.mkdtemp(prefix=".report-", dir=out))
+    try:
+        (stage / "report.json").write_text(json.dumps(rep, indent=1))
+        rows = flat_rows(rep)
+        with (stage / "report.csv").open("w", newline="") as f:
+            w = csv.DictWriter(f, fieldnames=list(rows[0]))
+            w.writeheader()
+            w.writerows(rows)
+        ok, png = cv2.imencode(".png", sample_grid(sample_input, samples, rep))
+        if not ok:
+            raise InputError("samples.png: OpenCV could not encode the sample grid")
+        (stage / "samples.png").write_bytes(png.tobytes())
+        pareto_plot(rep, stage / "pareto.png")
+        (stage / "report.md").write_text(markdown(rep))
+        for f in sorted(stage.iterdir()):
+            os.replace(f, out / f.name)
+    except OSError as e:
+        if e.errno is None:
+            raise
+        # name the file the user asked for (or the folder), not the hidden one
+        where = out / Path(e.filename).name if e.filename and Path(e.filename).parent == stage else out
+        raise OSError(e.errno, os.strerror(e.errno), str(where)) from None
+    finally:
+        shutil.rmtree(stage, ignore_errors=True)
+        if made and not any(out.iterdir()):
+            out.rmdir()

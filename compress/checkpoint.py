@@ -4,6 +4,7 @@ Loaded with torch.load(weights_only=True): a checkpoint cannot run code.
 """
 from __future__ import annotations
 
+import io
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -47,7 +48,10 @@ def save(ckpt: Checkpoint, path: Path) -> None:
     blob = {"limner_checkpoint": CHECKPOINT_FORMAT, "family": ckpt.family,
             "model_args": ckpt.model_args, "state_dict": ckpt.state_dict,
             "meta": ckpt.meta, "train_state": ckpt.train_state}
-    atomic_write_bytes(Path(path), lambda f: torch.save(blob, f))
+    buf = io.BytesIO()  # serialised first: a full disk then fails in a plain write, as an OSError
+    torch.save(blob, buf)
+    data = buf.getvalue()
+    atomic_write_bytes(Path(path), lambda f: f.write(data))
 
 
 def load_failure(e: BaseException) -> str:

@@ -19,6 +19,7 @@ import numpy as np
 import torch
 from limner.runtime import config as cfgmod
 from limner.runtime.errors import InputError
+from limner.runtime.images import write_image
 from limner.runtime.outputs import check_out_folder
 from limner.runtime.progress import Progress
 from limner.runtime.styles import style_image
@@ -141,7 +142,7 @@ def _preview(model: torch.nn.Module, images: list[np.ndarray], path: Path,
     hgt = max(c.shape[0] for c in cols)
     cols = [np.pad(c, ((0, hgt - c.shape[0]), (0, 0), (0, 0))) for c in cols]
     path.parent.mkdir(parents=True, exist_ok=True)
-    cv2.imwrite(str(path), np.concatenate(cols, 1))
+    write_image(path, np.concatenate(cols, 1))
 
 
 def _log_rows_upto(csv_path: Path, step: int) -> None:
@@ -263,7 +264,7 @@ class _Run:
         if world.main:
             out.mkdir(parents=True, exist_ok=True)
             (out / "config.toml").write_text(cfgmod.dumps_toml(cfg) + f"# world size: {world.size}\n")
-            cv2.imwrite(str(out / "style.png"), style_bgr)
+            write_image(out / "style.png", style_bgr)
             if state is not None:
                 _log_rows_upto(out / "losses.csv", start_step)
         return cls(cfg=cfg, out=out, world=world, device=device, data=data, previews=previews,

@@ -2,11 +2,13 @@
 distillation and calibration. Writes only when run, only into the folder given."""
 from __future__ import annotations
 
+import os
 from pathlib import Path
 
 import cv2
 
 from .errors import InputError
+from .images import write_image
 from .outputs import check_out_folder
 from .progress import Progress
 from .sources import open_source
@@ -37,10 +39,12 @@ def capture(source: str | None, frames: int, out: Path, every: int = 1, quality:
             if (n - 1) % every:
                 continue
             path = out / f"frame_{start + len(written):06d}.jpg"
-            tmp = path.with_name(f".{path.stem}.tmp.jpg")
-            if not cv2.imwrite(str(tmp), frame, [cv2.IMWRITE_JPEG_QUALITY, quality]):
-                raise OSError(f"{tmp}: cannot write")
-            tmp.replace(path)
+            try:
+                write_image(path, frame, [cv2.IMWRITE_JPEG_QUALITY, quality])
+            except OSError as e:
+                why = os.strerror(e.errno).lower() if e.errno else str(e)
+                kept = f"; the {len(written)} frame(s) before it are kept" if written else ""
+                raise InputError(f"{path}: cannot write the frame: {why}{kept}") from None
             written.append(path)
             bar.update(1)
     finally:

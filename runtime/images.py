@@ -10,6 +10,7 @@ import cv2
 import numpy as np
 
 from .errors import InputError
+from .outputs import atomic_write_bytes
 
 IMAGE_EXTS = {".jpg", ".jpeg", ".png", ".bmp", ".tif", ".tiff", ".webp"}
 
@@ -45,6 +46,18 @@ def read_image(path: Path) -> np.ndarray:
     if img is None:
         raise InputError(f"{path}: cannot be read as an image")
     return img
+
+
+def write_image(path: Path, img: np.ndarray, params: list[int] | None = None) -> Path:
+    """Encode by the file's extension and write atomically (runtime/outputs.py): a full disk
+    raises an OSError naming `path` and leaves no partial file (cv2.imwrite would return
+    False, or print libpng's "Write Error", and carry on)."""
+    path = Path(path)
+    ok, data = cv2.imencode(path.suffix or ".png", img, params or [])
+    if not ok:
+        raise InputError(f"{path}: OpenCV cannot encode an image of shape {img.shape} as {path.suffix}")
+    atomic_write_bytes(path, lambda f: f.write(data.tobytes()))
+    return path
 
 
 def lcm_all(values: list[int]) -> int:

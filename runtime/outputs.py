@@ -40,7 +40,9 @@ def atomic_write_bytes(path: Path, write: Any) -> None:
             f.flush()
             os.fsync(f.fileno())
         os.replace(tmp, path)
-    except BaseException:
+    except BaseException as e:
         if os.path.exists(tmp):
             os.unlink(tmp)
+        if isinstance(e, OSError) and e.errno is not None and not e.filename:
+            raise OSError(e.errno, os.strerror(e.errno), str(path)) from None  # name the file
         raise

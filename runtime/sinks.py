@@ -80,6 +80,9 @@ class Window:
         cv2.pollKey()
 
 
+GROWTH_CHECK_EVERY = 120  # frames between checks that the recording grows (a few seconds)
+
+
 class VideoFile:
     """mp4v for .mp4/.mov, MJPG for .avi (the pip wheels carry no H.264 encoder).
 
@@ -98,6 +101,7 @@ class VideoFile:
         self.writer: cv2.VideoWriter | None = None
         self.size: tuple[int, int] | None = None
         self.frames = 0
+        self._size_at_check = 0
 
     def write(self, frame: np.ndarray) -> None:
         h, w = frame.shape[:2]
@@ -105,14 +109,32 @@ class VideoFile:
             self.size = (w, h)
             self.writer = cv2.VideoWriter(str(self.tmp), self.fourcc, self.fps, self.size)
             if not self.writer.isOpened():
-                raise OSError(f"{self.path}: cannot open a video writer")
+                raise InputError(f"{self.path}: cannot open a video writer")
         if (w, h) != self.size:
             frame = cv2.resize(frame, self.size, interpolation=cv2.INTER_LINEAR)
-        self.writer.write(frame)
+        self.writer.write(frame)  # OpenCV reports no write errors: the file's growth is checked
         self.frames += 1
+        if self.frames % GROWTH_CHECK_EVERY == 0:
+            size = self.tmp.stat().st_size if self.tmp.exists() else 0
+            if size <= self._size_at_check:
+                self._fail(f"stopped growing at {size:,} bytes after {self.frames} frames")
+            self._size_at_check = size
+
+    def _fail(self, why: str) -> None:
+        if self.writer is not None:
+            self.writer.release()
+            self.writer = None
+        self.tmp.unlink(missing_ok=True)
+        raise InputError(f"{self.path}: the recording could not be written ({why}; disk full or "
+                         "file size limit?); it was removed")
 
     def close(self) -> None:
         if self.writer is not None:
             self.writer.release()
             self.writer = None
+            cap = cv2.VideoCapture(str(self.tmp))
+            readable = int(cap.get(cv2.CAP_PROP_FRAME_COUNT)) if cap.isOpened() else 0
+            cap.release()
+            if readable < self.frames:
+                self._fail(f"{readable} of {self.frames} frames readable")
             os.replace(self.tmp, self.path)

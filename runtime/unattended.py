@@ -8,8 +8,9 @@ import os
 import time
 from pathlib import Path
 
-import cv2
 import numpy as np
+
+from .images import write_image
 
 log = logging.getLogger("limner")
 
@@ -70,11 +71,11 @@ class Snapshots:
         files = self._existing()
         n = int(files[-1].stem.split("_")[1]) + 1 if files else 1
         path = self.folder / f"snapshot_{n:06d}.png"
-        tmp = self.folder / f".snapshot_{n:06d}.tmp.png"
-        if not cv2.imwrite(str(tmp), img):
-            log.error("snapshot: cannot write %s", tmp)
+        try:
+            write_image(path, img)
+        except OSError as e:  # the show goes on without the snapshot
+            log.error("snapshot: cannot write %s: %s", path, e.strerror or e)
             return None
-        os.replace(tmp, path)
         for old in self._existing()[:-self.keep] if self.keep > 0 else []:
             old.unlink(missing_ok=True)
         log.info("snapshot %s", path)

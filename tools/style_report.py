@@ -16,7 +16,7 @@ from pathlib import Path
 import cv2
 import numpy as np
 
-from limner.runtime.images import cover_crop, list_images, read_image
+from limner.runtime.images import cover_crop, list_images, read_image, write_image
 from limner.bench.style_features import StyleScorer
 from limner.runtime.model import load_model
 from limner.runtime.styles import style_image
@@ -51,7 +51,7 @@ def main() -> None:
         cols = [np.concatenate([photos[n] for n in names], 0)]
         cols += [np.concatenate([r[list(photos).index(n)] for n in names], 0) for r in rows]
         img = np.concatenate(cols, 1)
-        cv2.imwrite(str(a.png), cv2.resize(img, (img.shape[1] // 2, img.shape[0] // 2), interpolation=cv2.INTER_AREA))
+        write_image(a.png, cv2.resize(img, (img.shape[1] // 2, img.shape[0] // 2), interpolation=cv2.INTER_AREA))
 
 
 if __name__ == "__main__":

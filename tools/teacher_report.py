@@ -22,6 +22,7 @@ from limner.bench.metrics import ssim
 from limner.compress import checkpoint as ck
 from limner.compress.lossnet import build_loss_net
 from limner.compress.registry import build
+from limner.runtime.images import write_image
 from limner.runtime.styles import style_image
 from limner.compress.train import PerceptualLoss, TrainConfig, to_tensor
 from limner.runtime import config as cfgmod
@@ -76,7 +77,7 @@ def main() -> None:
         np.mean([r["blurred_luma_ssim"] for r in rows])))
     if a.png:
         a.png.parent.mkdir(parents=True, exist_ok=True)
-        cv2.imwrite(str(a.png), np.concatenate(tiles, 0))
+        write_image(a.png, np.concatenate(tiles, 0))
 
 
 if __name__ == "__main__":

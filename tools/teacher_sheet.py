@@ -12,7 +12,7 @@ from pathlib import Path
 import cv2
 import numpy as np
 
-from limner.runtime.images import cover_crop, read_image
+from limner.runtime.images import cover_crop, read_image, write_image
 from limner.runtime.bundled import HELD_OUT_PHOTOS, STREET_CLIP
 from limner.runtime.model import load_model
 from limner.runtime.styles import style_image
@@ -64,7 +64,7 @@ def main() -> None:
     img = sheet(a.model, a.style, a.photos, a.frame)
     img = cv2.resize(img, None, fx=a.scale, fy=a.scale, interpolation=cv2.INTER_AREA)
     a.out.parent.mkdir(parents=True, exist_ok=True)
-    cv2.imwrite(str(a.out), img)
+    write_image(a.out, img)
     print(a.out)
 
 
