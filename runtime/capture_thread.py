@@ -20,6 +20,7 @@ from typing import Callable
 
 import numpy as np
 
+from .images import as_bgr
 from .sources import FrameSource
 
 log = logging.getLogger("limner.capture")
@@ -42,6 +43,7 @@ class Capture:
         self.taken = 0            # the newest seq handed to the consumer
         self.state = "starting"  # starting | running | stalled | reconnecting | ended
         self.reconnects = 0
+        self.dropped_bad = 0  # frames that were not images the models take (as_bgr)
         self.description = ""
         self._stop = threading.Event()
         self._generation = 0
@@ -158,6 +160,13 @@ class Capture:
                     log.warning("capture: source returned no frame (unplugged?)")
                 ended.set()
                 return
+            img = as_bgr(img)
+            if img is None:
+                self.dropped_bad += 1
+                if self.dropped_bad in (1, 10, 100) or self.dropped_bad % 1000 == 0:
+                    log.warning("capture: dropped %d frame(s) that were not 8-bit grey, BGR or BGRA",
+                                self.dropped_bad)
+                continue
             if self.pace_fps > 0:  # a file played like a camera
                 next_t += 1.0 / self.pace_fps
                 wait = next_t - time.monotonic()

@@ -48,6 +48,23 @@ def read_image(path: Path) -> np.ndarray:
     return img
 
 
+def as_bgr(frame: np.ndarray) -> np.ndarray | None:
+    """A source frame as 8-bit 3-channel BGR, the models' input: grey (2-D or one channel)
+    and BGRA are converted, 16-bit is scaled down; anything else (empty, other channel
+    counts, float) is None, so that the caller drops the frame rather than the show."""
+    if not isinstance(frame, np.ndarray) or frame.size == 0 or frame.ndim not in (2, 3):
+        return None
+    if frame.dtype == np.uint16:
+        frame = (frame >> 8).astype(np.uint8)
+    if frame.dtype != np.uint8:
+        return None
+    if frame.ndim == 2 or frame.shape[2] == 1:
+        return cv2.cvtColor(frame.reshape(frame.shape[:2]), cv2.COLOR_GRAY2BGR)
+    if frame.shape[2] == 4:
+        return cv2.cvtColor(frame, cv2.COLOR_BGRA2BGR)
+    return frame if frame.shape[2] == 3 else None
+
+
 def write_image(path: Path, img: np.ndarray, params: list[int] | None = None) -> Path:
     """Encode by the file's extension and write atomically (runtime/outputs.py): a full disk
     raises an OSError naming `path` and leaves no partial file (cv2.imwrite would return
