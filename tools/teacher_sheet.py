@@ -1,8 +1,9 @@
-"""One side-by-side picture per style for docs/: the style image, held-out photos and a
-frame of the held-out street video, each above the model's output (640x360 inputs).
+"""One side-by-side picture per style for docs/: the style image, held-out photos and
+frames of the held-out street video, each above the output of every model given, one row
+per model (640x360 inputs): a teacher alone, or a teacher and its students.
 
-    python tools/teacher_sheet.py MODEL.onnx --style ember -o docs/ember-teacher.png \\
-        [--photos runtime/assets/photos/heldout/{chelsea,squirrel}.jpg] [--frame 60]
+    python tools/teacher_sheet.py MODEL.onnx [MODEL.onnx ...] --style ember -o docs/ember-teacher.png \\
+        [--photos runtime/assets/photos/heldout/{chelsea,squirrel}.jpg] [--frame 60 [200 ...]]
 """
 from __future__ import annotations
 
@@ -39,25 +40,27 @@ def video_frame(index: int) -> np.ndarray:
     return frame
 
 
-def sheet(model_path: Path, style: str, photos: list[Path], frame: int) -> np.ndarray:
-    m = load_model(model_path)
+def sheet(model_paths: list[Path], style: str, photos: list[Path], frames: list[int]) -> np.ndarray:
     style_bgr, name = style_image(style)
     inputs = [(p.stem, cover_crop(read_image(p), 640, 360)) for p in photos]
-    inputs.append((f"street video, frame {frame}", cover_crop(video_frame(frame), 640, 360)))
+    inputs += [(f"street video, frame {f}", cover_crop(video_frame(f), 640, 360)) for f in frames]
     sq = cv2.resize(style_bgr, (360, 360), interpolation=cv2.INTER_AREA)
-    top = [_label(sq, f"style: {name}")] + [_label(i, f"held-out: {n}") for n, i in inputs]
-    bottom = [np.full_like(sq, 255)] + [_label(m.run(i), f"{m.meta.name or model_path.stem}")
-                                         for _, i in inputs]
-    return np.concatenate([np.concatenate(top, 1), np.concatenate(bottom, 1)], 0)
+    rows = [[_label(sq, f"style: {name}")] + [_label(i, f"held-out: {n}") for n, i in inputs]]
+    for path in model_paths:
+        m = load_model(path)
+        label = m.meta.name or path.stem
+        label = path.stem if label == "teacher" or path.stem.endswith("-int8") else label
+        rows.append([np.full_like(sq, 255)] + [_label(m.run(i), label) for _, i in inputs])
+    return np.concatenate([np.concatenate(r, 1) for r in rows], 0)
 
 
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
-    ap.add_argument("model", type=Path)
+    ap.add_argument("model", type=Path, nargs="+", help="one row per model, in this order")
     ap.add_argument("--style", required=True)
     ap.add_argument("--photos", nargs="+", type=Path,
                     default=[HELD_OUT_PHOTOS / "chelsea.jpg", HELD_OUT_PHOTOS / "street-1.jpg"])
-    ap.add_argument("--frame", type=int, default=60)
+    ap.add_argument("--frame", type=int, nargs="+", default=[60], help="street video frame number(s)")
     ap.add_argument("--scale", type=float, default=0.6, help="output scale (keeps docs/ small)")
     ap.add_argument("-o", "--out", type=Path, required=True)
     a = ap.parse_args()

@@ -1,0 +1,63 @@
+"""Bundle a finished compression run as a style's ladder, the same way for every style.
+
+    python tools/bundle_ladder.py runs/ember-ladder --style ember --default tiny4-ctx
+
+replaces runtime/assets/candidates/STYLE/ with the run's models, manifest.json,
+recipe.toml and compress.log (no training files: the package holds what runs), keeps each
+distilled network's weights (no optimizer state) in work/STYLE-ladder/students/NAME.pt so a
+later recipe can warm-start from them (`init`), and with --default copies that candidate
+to runtime/assets/models/default.onnx, the live default.
+"""
+from __future__ import annotations
+
+import argparse
+import json
+import shutil
+import sys
+from pathlib import Path
+
+REPO = Path(__file__).resolve().parents[1]
+
+
+def main(argv: list[str] | None = None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("run", type=Path, help="a finished `limner compress` output folder")
+    ap.add_argument("--style", required=True, help="bundled style name")
+    ap.add_argument("--default", metavar="NAME", help="candidate to copy to the live default")
+    a = ap.parse_args(argv)
+    from limner.compress import checkpoint as ck
+
+    manifest_path = a.run / "manifest.json"
+    if not manifest_path.is_file():
+        ap.error(f"{manifest_path}: missing (is the run finished?)")
+    manifest = json.loads(manifest_path.read_text())
+    cands = manifest["candidates"]
+    if a.default and a.default not in cands:
+        ap.error(f"--default {a.default}: not a candidate of {a.run} ({', '.join(sorted(cands))})")
+    files = [a.run / c["file"] for c in cands.values()]
+    missing = [str(f) for f in files if not f.is_file()]
+    if missing:
+        ap.error(f"missing model files: {', '.join(missing)}")
+    dest = REPO / "runtime" / "assets" / "candidates" / a.style
+    if dest.exists():
+        shutil.rmtree(dest)
+    dest.mkdir(parents=True)
+    for f in files + [manifest_path, a.run / "recipe.toml", a.run / "compress.log"]:
+        shutil.copy(f, dest / f.name)
+    students = REPO / "work" / f"{a.style}-ladder" / "students"
+    students.mkdir(parents=True, exist_ok=True)
+    for name in cands:
+        p = a.run / "work" / name / "checkpoint.pt"
+        if p.is_file():
+            c = ck.load(p)
+            c.train_state = {k: v for k, v in c.train_state.items() if k in ("step", "seconds", "world_size")}
+            ck.save(c, students / f"{name}.pt")
+    if a.default:
+        shutil.copy(dest / cands[a.default]["file"], REPO / "runtime" / "assets" / "models" / "default.onnx")
+    print(f"bundled {len(cands)} candidate(s) in {dest.relative_to(REPO)}; weights in "
+          f"{students.relative_to(REPO)}" + (f"; live default: {a.default}" if a.default else ""))
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
