@@ -149,8 +149,8 @@ class Student(nn.Module):
         return self.net[k + 1:](self.net[k](h, stats))
 
 
-# A ladder of student shapes from slow-and-faithful to fast-and-rough; the default
-# compression recipe draws on it and the tests cover every entry.
+# Named student shapes from slow-and-faithful to fast-and-rough: the tests build, export,
+# count and prune every entry (recipes give their knobs explicitly instead).
 PRESETS: dict[str, StudentKnobs] = {
     "s-wide": StudentKnobs(width=0.5, blocks=3, kernel_in=5, kernel_out=5),
     "s-mid": StudentKnobs(width=0.375, blocks=2, kernel_in=5, kernel_out=5),

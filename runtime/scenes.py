@@ -1,6 +1,7 @@
 """Procedurally generated scenes of our own: sky gradients, hills, buildings, discs,
-stripes and noise textures. Used for the demo clip and to widen the distillation set
-(the teacher makes the targets, so any image is a valid input). Torch-free."""
+stripes and noise textures: `scenes:N` content, which can widen a distillation set (the
+teacher makes the targets, so any image is a valid input). The demo clip is the real street
+video (runtime/demo_clip.py). Torch-free."""
 from __future__ import annotations
 
 import cv2
