@@ -1,9 +1,17 @@
 """The registry of quality metrics, read by quality, report, plots, pick and the config,
-and the accessors of a report row. Adding a fidelity metric: its function in
-quality.pair_metrics and one Metric here."""
+and the accessors of a report row. Adding a fidelity metric is one Metric here: its key,
+labels, direction, perfect value and the function that computes it."""
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
+
+from .color import scielab_delta_e
+from .metrics import ms_ssim, psnr, ssim
+
+PSNR_CAP = 99.0  # identical images: 99 dB instead of infinity (JSON has no inf)
 
 
 @dataclass(frozen=True)
@@ -13,6 +21,8 @@ class Metric:
     unit: str
     higher: bool      # True: higher is better
     perfect: float    # the teacher against itself
+    # (candidate BGR, teacher BGR, display pixels per degree) -> value
+    compute: Callable[[np.ndarray, np.ndarray, float], float]
 
     def axis_label(self) -> str:
         unit = f", {self.unit}" if self.unit else ""
@@ -23,10 +33,10 @@ class Metric:
 
 
 QUALITY: dict[str, Metric] = {m.key: m for m in (
-    Metric("ms_ssim", "MS-SSIM", "", True, 1.0),
-    Metric("ssim", "SSIM", "", True, 1.0),
-    Metric("psnr", "PSNR", "dB", True, 99.0),   # identical images: 99 dB (JSON has no infinity)
-    Metric("delta_e", "S-CIELAB dE00", "", False, 0.0),
+    Metric("ms_ssim", "MS-SSIM", "", True, 1.0, lambda a, b, ppd: ms_ssim(a, b)),
+    Metric("ssim", "SSIM", "", True, 1.0, lambda a, b, ppd: ssim(a, b)),
+    Metric("psnr", "PSNR", "dB", True, PSNR_CAP, lambda a, b, ppd: min(psnr(a, b), PSNR_CAP)),
+    Metric("delta_e", "S-CIELAB dE00", "", False, 0.0, scielab_delta_e),
 )}
 
 

@@ -4,16 +4,13 @@ from __future__ import annotations
 import numpy as np
 
 from .axes import QUALITY
-from .color import scielab_delta_e
-from .metrics import ms_ssim, psnr, ssim
+from .metrics import ms_ssim, ssim
 from .stability import warp_error
-
-PSNR_CAP = QUALITY["psnr"].perfect  # identical images: 99 dB instead of infinity (JSON has no inf)
 
 
 def pair_metrics(a: np.ndarray, b: np.ndarray, ppd: float) -> dict[str, float]:
-    return {"ssim": ssim(a, b), "ms_ssim": ms_ssim(a, b), "psnr": min(psnr(a, b), PSNR_CAP),
-            "delta_e": scielab_delta_e(a, b, ppd)}
+    """Every registered quality metric (axes.QUALITY) of output `a` against the teacher's `b`."""
+    return {k: float(m.compute(a, b, ppd)) for k, m in QUALITY.items()}
 
 
 def summarise(per_image: list[dict[str, float]]) -> dict[str, dict[str, float]]:
