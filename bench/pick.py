@@ -24,13 +24,24 @@ class Axis:
     key: str          # name used in messages
     flag: str
     higher: bool      # True: value must be >= threshold
+    help: str = ""
+    relative_to: str = ""  # "floor" (the teacher's noise floor) or "teacher" (its own value)
+
+    @property
+    def dest(self) -> str:
+        return self.flag[2:].replace("-", "_")
 
 
-AXES = {"fps": Axis("fps", "--min-fps", True),
-        **{k: Axis(QUALITY[k].label, ("--min-" if QUALITY[k].higher else "--max-") + k.replace("_", "-"),
-                   QUALITY[k].higher) for k in ("ms_ssim", "ssim", "delta_e")},
-        "warp": Axis("warp error", "--max-warp", False),
-        "style_share": Axis("style share", "--max-style-share", False)}
+# fps, every quality metric of the registry (bench/axes.py), stability and style
+AXES = {"fps": Axis("fps", "--min-fps", True, "frames per second at --resolution"),
+        **{k: Axis(m.label, ("--min-" if m.higher else "--max-") + k.replace("_", "-"), m.higher,
+                   f"{m.label} to the teacher{', ' + m.unit if m.unit else ''}: a number, or relative "
+                   "to the teacher's noise floor: floor, floor*K, floor+K, floor-K", "floor")
+           for k, m in QUALITY.items()},
+        "warp": Axis("warp error", "--max-warp", False, "warping error on the clip"),
+        "style_share": Axis("style share", "--max-style-share", False,
+                            "style share (Gram distance to the style, 1 = the photo's); a number or "
+                            "relative to the teacher's, e.g. teacher*1.5", "teacher")}
 
 
 @dataclass
@@ -92,9 +103,7 @@ def _values(row: dict, resolution: str) -> dict[str, float | None]:
     st = row["stability"]
     perfect = row["is_teacher"]
     return {"fps": s["fps"] if s else None,
-            "ms_ssim": 1.0 if perfect else f["ms_ssim"]["mean"],
-            "ssim": 1.0 if perfect else f["ssim"]["mean"],
-            "delta_e": 0.0 if perfect else f["delta_e"]["mean"],
+            **{k: m.perfect if perfect else f[k]["mean"] for k, m in QUALITY.items()},
             "warp": st.get("warp_error"),
             "style_share": (row.get("style") or {}).get("style_share", {}).get("mean")}
 
@@ -104,9 +113,13 @@ def _teacher_style(rep: dict) -> float | None:
     return _values(t, "")["style_share"] if t else None
 
 
-def pick(report: str | Path, *, min_fps: float | None = None, min_ms_ssim=None, min_ssim=None,
-         max_delta_e=None, max_warp=None, max_style_share=None,
-         resolution: str | None = None) -> PickResult:
+def pick(report: str | Path, *, resolution: str | None = None, **limits: str | float | None) -> PickResult:
+    """`limits` by flag name (min_fps=30, min_ms_ssim="floor-0.05", max_style_share=0.5, ...;
+    one per axis in AXES); None or absent: no threshold on that axis."""
+    by_dest = {a.dest: k for k, a in AXES.items()}
+    unknown = sorted(set(limits) - set(by_dest))
+    if unknown:
+        raise PickError(f"unknown threshold {unknown[0]!r}; known: {', '.join(sorted(by_dest))}")
     rep = load_report(report)
     res = resolution or rep["config"]["plot_resolution"]
     known = rep["resolutions"]
@@ -115,12 +128,11 @@ def pick(report: str | Path, *, min_fps: float | None = None, min_ms_ssim=None, 
         raise PickError(f"--resolution {res}: the report measured {', '.join(known)}")
     res = match[0]
     floor = rep["floor"]
-    t = {"fps": min_fps,
-         "ms_ssim": resolve_threshold(min_ms_ssim, floor["ms_ssim"]["mean"], "--min-ms-ssim"),
-         "ssim": resolve_threshold(min_ssim, floor["ssim"]["mean"], "--min-ssim"),
-         "delta_e": resolve_threshold(max_delta_e, floor["delta_e"]["mean"], "--max-delta-e"),
-         "warp": resolve_threshold(max_warp, None, "--max-warp") if max_warp is not None else None,
-         "style_share": resolve_threshold(max_style_share, None, "--max-style-share", _teacher_style(rep))}
+    t = {}
+    for k, axis in AXES.items():
+        base = floor.get(k, {}).get("mean") if axis.relative_to == "floor" else None
+        teacher = _teacher_style(rep) if axis.relative_to == "teacher" else None
+        t[k] = resolve_threshold(limits.get(axis.dest), base, axis.flag, teacher)
     active = {k: v for k, v in t.items() if v is not None}
     if not active:
         raise PickError("give at least one threshold, e.g. --min-fps 30")

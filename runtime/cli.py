@@ -203,23 +203,18 @@ def _run_bench(a: argparse.Namespace) -> int:
 
 
 def _add_pick(p: argparse.ArgumentParser) -> None:
+    from limner.bench.pick import AXES
+
     p.add_argument("report", metavar="REPORT", help="a bench report folder or its report.json")
-    p.add_argument("--min-fps", type=float, metavar="F", help="frames per second at --resolution")
-    p.add_argument("--min-ms-ssim", metavar="S", help="number, or relative: floor, floor*K, floor-K")
-    p.add_argument("--min-ssim", metavar="S", help="number, or relative to the teacher's floor")
-    p.add_argument("--max-delta-e", metavar="D", help="S-CIELAB dE00; number or e.g. floor*2")
-    p.add_argument("--max-warp", type=float, metavar="W", help="warping error")
-    p.add_argument("--max-style-share", metavar="S",
-                   help="style share (Gram distance to the style, 1 = the photo's); number or e.g. teacher*1.5")
+    for axis in AXES.values():  # one flag per axis: fps, each quality metric, warp, style share
+        p.add_argument(axis.flag, dest=axis.dest, metavar="V", help=axis.help)
     p.add_argument("--resolution", metavar="WxH", help="default: the report's plot resolution")
 
 
 def _run_pick(a: argparse.Namespace) -> int:
-    from limner.bench.pick import pick
+    from limner.bench.pick import AXES, pick
 
-    r = pick(a.report, min_fps=a.min_fps, min_ms_ssim=a.min_ms_ssim, min_ssim=a.min_ssim,
-             max_delta_e=a.max_delta_e, max_warp=a.max_warp, max_style_share=a.max_style_share,
-             resolution=a.resolution)
+    r = pick(a.report, resolution=a.resolution, **{x.dest: getattr(a, x.dest) for x in AXES.values()})
     if r.chosen is None:
         print("\n".join(r.lines), file=sys.stderr)
         return 1
