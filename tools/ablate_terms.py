@@ -8,12 +8,14 @@ with the bench's own metrics (MS-SSIM, S-CIELAB CIEDE2000 at the bench's default
 viewing geometry). Results go to a CSV and to stdout as a table.
 
 Usage:
-  python tools/ablate_terms.py --recipe configs/compress/ember-bundled.toml \\
-      --cache runtime/assets/candidates/ember/work/cache.npz \\
-      --init compress/assets/ember-crop-students/tiny.pt --student tiny-ctx \\
+  python tools/ablate_terms.py --recipe configs/compress/ember-hed.toml \\
+      --cache runs/ember-ladder/work/cache.npz \\
+      --init work/ember-ladder/students/tiny4-ctx.pt --student tiny4-ctx \\
       --teacher runtime/assets/models/ember-teacher.onnx \\
-      --content runtime/assets/photos/chelsea.jpg runtime/assets/photos/grace_hopper.jpg \\
+      --content runtime/assets/photos/heldout \\
       --steps 300 -o runs/ablation
+
+(the cache is the one `limner compress` made for the ladder: rebuilt by rerunning it)
 """
 from __future__ import annotations
 
@@ -23,13 +25,12 @@ import dataclasses
 import tempfile
 from pathlib import Path
 
-import cv2
 import numpy as np
 import torch
 
 from limner.bench.color import scielab_delta_e
 from limner.bench.metrics import ms_ssim
-from limner.runtime.images import cover_crop
+from limner.runtime.images import cover_crop, list_images, read_image
 from limner.compress.distill import distill
 from limner.compress.lossnet import build_loss_net
 from limner.compress.pipeline import init_from
@@ -78,7 +79,7 @@ def main() -> None:
     ap.add_argument("--init", required=True, help="student checkpoint every variant starts from")
     ap.add_argument("--student", required=True, help="a student name in the recipe (its knobs)")
     ap.add_argument("--teacher", required=True)
-    ap.add_argument("--content", nargs="+", required=True, help="held-out photos")
+    ap.add_argument("--content", nargs="+", required=True, help="held-out photos or folders of them")
     ap.add_argument("--steps", type=int, default=300)
     ap.add_argument("--variants", nargs="+", default=["all"] + [f"no:{t}" for t in TERMS],
                     help="'all', 'no:TERM' (all but TERM), 'only:TERM' (TERM alone) or "
@@ -94,7 +95,7 @@ def main() -> None:
     cache = {k: z[k] for k in z.files}
     lossnet, _ = build_loss_net(recipe.loss_net, None, recipe.loss_seed)
     teacher = load_model(a.teacher)
-    photos = {Path(p).stem: cover_crop(cv2.imread(p), 640, 360) for p in a.content}
+    photos = {p.stem: cover_crop(read_image(p), 640, 360) for p in list_images(a.content)}
     targets = {k: teacher.run(v) for k, v in photos.items()}
     a.out.mkdir(parents=True, exist_ok=True)
     rows = []

@@ -47,8 +47,8 @@ GUEST_SRC = "/opt/limner"          # the checkout's copy inside the root
 GUEST_OUT = "/opt/limner-out"      # what the guest writes for the host to read
 HOST_CA = os.environ.get("SSL_CERT_FILE", "/etc/ssl/certs/ca-certificates.crt")
 GUEST_CA = "/etc/ssl/certs/limner-host-ca.crt"
-CANDIDATES = ("tiny4-ctx-ng.onnx", "tiny4-ctx-ng-int8.onnx")
-REFERENCE = "tiny8-ctx-ng.onnx"
+CANDIDATES = ("tiny4-ctx.onnx", "tiny4-ctx-int8.onnx")
+REFERENCE = "half-ctx.onnx"
 LIVE_FRAMES = 30
 
 
