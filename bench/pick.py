@@ -120,6 +120,9 @@ def pick(report: str | Path, *, resolution: str | None = None, **limits: str | f
     unknown = sorted(set(limits) - set(by_dest))
     if unknown:
         raise PickError(f"unknown threshold {unknown[0]!r}; known: {', '.join(sorted(by_dest))}")
+    for k, axis in AXES.items():  # the values' form first, before the report is read
+        known = 0.0 if axis.relative_to else None
+        resolve_threshold(limits.get(axis.dest), known, axis.flag, known)
     rep = load_report(report)
     res = resolution or rep["config"]["plot_resolution"]
     known = rep["resolutions"]
