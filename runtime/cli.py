@@ -351,6 +351,12 @@ def main(argv: list[str] | None = None) -> int:
             print(f"limner {a.command}: error: {_one_line(e)}", file=sys.stderr)
             return 1
         raise
+    finally:
+        # the command is over: a signal while the interpreter shuts down (torch and
+        # onnxruntime take a moment) would only turn a finished run into a killed one
+        if threading.current_thread() is threading.main_thread():
+            signal.signal(signal.SIGINT, signal.SIG_IGN)
+            signal.signal(signal.SIGTERM, signal.SIG_IGN)
 
 
 def _one_line(e: BaseException) -> str:
