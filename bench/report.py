@@ -10,7 +10,7 @@ from pathlib import Path
 
 import cv2
 import numpy as np
-from limner.runtime.errors import InputError
+from limner.runtime.images import write_image
 
 from .axes import QUALITY, speed_at
 from .plots import pareto_plot
@@ -147,10 +147,7 @@ def write_all(rep: dict, out: Path, samples: dict[str, np.ndarray], sample_input
             w = csv.DictWriter(f, fieldnames=list(rows[0]))
             w.writeheader()
             w.writerows(rows)
-        ok, png = cv2.imencode(".png", sample_grid(sample_input, samples, rep))
-        if not ok:
-            raise InputError("samples.png: OpenCV could not encode the sample grid")
-        (stage / "samples.png").write_bytes(png.tobytes())
+        write_image(stage / "samples.png", sample_grid(sample_input, samples, rep))
         pareto_plot(rep, stage / "pareto.png")
         (stage / "report.md").write_text(markdown(rep))
         for f in sorted(stage.iterdir()):

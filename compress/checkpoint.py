@@ -44,6 +44,13 @@ def from_model(model: nn.Module, meta: dict | None = None,
                       dict(meta or {}), dict(train_state or {}))
 
 
+def weights_only(ckpt: Checkpoint) -> Checkpoint:
+    """The checkpoint without optimizer and RNG state: what a bundled model or a warm start
+    needs (its step count and time are kept as a record)."""
+    keep = {k: v for k, v in ckpt.train_state.items() if k in ("step", "seconds", "world_size")}
+    return Checkpoint(ckpt.family, ckpt.model_args, ckpt.state_dict, ckpt.meta, keep)
+
+
 def save(ckpt: Checkpoint, path: Path) -> None:
     blob = {"limner_checkpoint": CHECKPOINT_FORMAT, "family": ckpt.family,
             "model_args": ckpt.model_args, "state_dict": ckpt.state_dict,

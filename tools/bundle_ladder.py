@@ -50,8 +50,7 @@ def main(argv: list[str] | None = None) -> int:
         p = a.run / "work" / name / "checkpoint.pt"
         if p.is_file():
             c = ck.load(p)
-            c.train_state = {k: v for k, v in c.train_state.items() if k in ("step", "seconds", "world_size")}
-            ck.save(c, students / f"{name}.pt")
+            ck.save(ck.weights_only(c), students / f"{name}.pt")
     if a.default:
         shutil.copy(dest / cands[a.default]["file"], REPO / "runtime" / "assets" / "models" / "default.onnx")
     print(f"bundled {len(cands)} candidate(s) in {dest.relative_to(REPO)}; weights in "

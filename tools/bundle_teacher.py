@@ -32,8 +32,7 @@ def main(argv: list[str] | None = None) -> int:
         if not p.is_file():
             ap.error(f"{p}: missing (is the run finished?)")
     c = ck.load(ckpt_path)
-    c.train_state = {k: v for k, v in c.train_state.items() if k in ("step", "seconds", "world_size")}
-    ck.save(c, REPO / "compress" / "assets" / f"{a.style}-teacher.pt")
+    ck.save(ck.weights_only(c), REPO / "compress" / "assets" / f"{a.style}-teacher.pt")
     model = REPO / "runtime" / "assets" / "models" / f"{a.style}-teacher.onnx"
     shutil.copy(onnx_path, model)
     record = REPO / "work" / "teachers" / a.style
