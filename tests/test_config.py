@@ -5,6 +5,7 @@ from pathlib import Path
 
 import pytest
 
+from limner.compress.recipe import Recipe
 from limner.compress.train import TrainConfig
 from limner.runtime.config import ConfigError, dumps_toml, load
 
@@ -15,6 +16,23 @@ def test_bundled_train_configs_load():
     for path in (REPO / "configs" / "train").glob("*.toml"):
         cfg = load(TrainConfig, path)
         assert cfg.steps >= 1
+
+
+def test_bundled_recipes_load_and_their_warm_starts_exist():
+    """Each configs/compress recipe loads, and every student's init is a file in the repository
+    or the checkpoint of a student that runs earlier in the same recipe (common practice, no
+    source: a recipe that a fresh clone cannot run is a broken record of how a ladder was built)."""
+    recipes = sorted((REPO / "configs" / "compress").glob("*.toml"))
+    assert {"ember-hed.toml", "tidepool-hed.toml", "woodcut-hed.toml"} <= {p.name for p in recipes}
+    for path in recipes:
+        recipe = load(Recipe, path)
+        earlier: set[str] = set()
+        for s in recipe.student:
+            if s.init:
+                init = Path(s.init)
+                made_here = init.parts[-3:-1] in {("work", n) for n in earlier} and init.name == "checkpoint.pt"
+                assert made_here or (REPO / init).is_file(), f"{path.name}: student {s.name}: init {s.init} missing"
+            earlier.add(s.name)
 
 
 def test_unknown_key_is_named(tmp_path):
