@@ -18,6 +18,23 @@ def test_bundled_train_configs_load():
         assert cfg.steps >= 1
 
 
+def test_train_config_warm_starts_survive_bundling():
+    """A teacher config's init is a committed file, and never the bundled teacher of its own
+    style, which tools/bundle_teacher.py overwrites with the result (common practice, no
+    source: a second stage must start from the same weights when rerun from a fresh clone)."""
+    with_init = 0
+    for path in sorted((REPO / "configs" / "train").glob("*.toml")):
+        cfg = load(TrainConfig, path)
+        if not cfg.init:
+            continue
+        with_init += 1
+        style = path.stem.split("-")[0]
+        assert (REPO / cfg.init).is_file(), f"{path.name}: init {cfg.init} missing"
+        assert Path(cfg.init) != Path(f"compress/assets/{style}-teacher.pt"), \
+            f"{path.name}: init {cfg.init} is overwritten when the result is bundled"
+    assert with_init >= 3
+
+
 def test_bundled_recipes_load_and_their_warm_starts_exist():
     """Each configs/compress recipe loads, and every student's init is a file in the repository
     or the checkpoint of a student that runs earlier in the same recipe (common practice, no
