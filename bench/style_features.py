@@ -125,13 +125,14 @@ class StyleScorer:
 
     def score(self, output_bgr: np.ndarray, photo_bgr: np.ndarray,
               photo_feats: dict[str, np.ndarray] | None = None) -> dict[str, float]:
-        """style_share and content_similarity of one stylised frame against its photo."""
+        """style_share and content_similarity of one stylised frame against its photo, and the
+        share at each tap (style_share_relu1_2, ...), whose mean is style_share."""
         fo, fp = self.features(output_bgr), photo_feats or self.features(photo_bgr)
         do, dp = self.style_distances(fo), self.style_distances(fp)
-        share = float(np.mean([do[k] / max(dp[k], 1e-12) for k in STYLE_TAPS]))
+        layers = {f"style_share_{k}": do[k] / max(dp[k], 1e-12) for k in STYLE_TAPS}
         a, b = fo[CONTENT_TAP].ravel().astype(np.float64), fp[CONTENT_TAP].ravel().astype(np.float64)
         cos = float(a @ b / max(np.linalg.norm(a) * np.linalg.norm(b), 1e-12))
-        return {"style_share": share, "content_similarity": cos}
+        return {"style_share": float(np.mean(list(layers.values()))), "content_similarity": cos, **layers}
 
 
 def open_for_style(style: str, threads: int = 0) -> tuple["StyleScorer | None", str]:

@@ -190,3 +190,27 @@ def test_real_hed_trunk_draws_hed_edges():
     assert min(ok) > 0.3 and np.mean(ok) > 0.5, ok
     assert np.mean(ok) - np.mean(bad_rand) > 0.5, (ok, bad_rand)
     assert np.mean(ok) - np.mean(bad_scale) > 0.2, (ok, bad_scale)
+
+
+def test_bench_scorer_shares_are_per_layer_ratios_to_the_photo():
+    """The bench's style share is the mean over relu1_2..relu4_3 of each Gram distance to the
+    style (Gatys et al. 2016; Gram normalised by C*H*W, Johnson et al. 2016 eq. 3) divided by
+    the unstylised photo's: the photo scored as its own output must give 1 at every layer and
+    a content cosine of 1 (a worked identity, common practice, no source)."""
+    cv2 = pytest.importorskip("cv2")
+    from limner.bench.style_features import STYLE_TAPS, StyleScorer, gram
+    from limner.runtime.styles import style_image
+
+    f = np.ones((2, 1, 2), np.float32)
+    assert np.allclose(gram(f), 0.5)   # each entry: 2 products of 1, over 2*1*2
+    _real_hed()
+    scorer = StyleScorer.open(style_image("woodcut")[0], threads=1)
+    photo = cv2.imread(str(Path(__file__).resolve().parents[1] / "runtime/assets/photos/heldout/chelsea.jpg"))
+    photo = cv2.resize(photo, (320, 180), interpolation=cv2.INTER_AREA)
+    same = scorer.score(photo, photo)
+    for tap in STYLE_TAPS:
+        assert same[f"style_share_{tap}"] == pytest.approx(1.0, abs=1e-9)
+    assert same["style_share"] == pytest.approx(1.0) and same["content_similarity"] == pytest.approx(1.0)
+    blurred = scorer.score(cv2.GaussianBlur(photo, (0, 0), 4), photo)
+    assert blurred["style_share"] == pytest.approx(np.mean([blurred[f"style_share_{t}"] for t in STYLE_TAPS]))
+    assert 0 < blurred["content_similarity"] < 0.99

@@ -38,11 +38,13 @@ def main() -> None:
         m = load_model(mp)
         outs = {k: m.run(v) for k, v in photos.items()}
         per = {k: scorer.score(outs[k], photos[k]) for k in photos}
-        mean = {s: float(np.mean([d[s] for d in per.values()])) for s in ("style_share", "content_similarity")}
+        mean = {s: float(np.mean([d[s] for d in per.values()])) for s in next(iter(per.values()))}
         report[str(mp)] = {"mean": mean, "per_photo": per}
         print(f"{mp}: style share {mean['style_share']:.3f}, content similarity "
               f"{mean['content_similarity']:.3f}  (" + ", ".join(
                   f"{k} {d['style_share']:.2f}/{d['content_similarity']:.2f}" for k, d in per.items()) + ")")
+        print("  style share by layer: " + ", ".join(
+            f"{k.removeprefix('style_share_')} {v:.3f}" for k, v in mean.items() if k.startswith("style_share_")))
         rows.append([outs[k] for k in photos])
     if a.json:
         a.json.write_text(json.dumps({"scorer": scorer.source, "models": report}, indent=1))
