@@ -197,6 +197,19 @@ def test_tiny_recipe_end_to_end(tiny_run):
     assert not set(splits["distillation"]["sha256"]) & set(splits["calibration"]["sha256"])
 
 
+def assert_int8_convs(q: onnx.ModelProto, min_share: float = 0.8) -> None:
+    """At least min_share of the Conv nodes take both input and weight from DequantizeLinear,
+    the weight from an int8 initializer (the QDQ form ONNX Runtime's quantizer writes)."""
+    produced = {o: n for n in q.graph.node for o in n.output}
+    int8 = {i.name for i in q.graph.initializer if i.data_type in (onnx.TensorProto.INT8, onnx.TensorProto.UINT8)}
+    convs = [n for n in q.graph.node if n.op_type == "Conv"]
+    quantized = [n for n in convs if produced.get(n.input[0]) is not None
+                 and produced[n.input[0]].op_type == "DequantizeLinear"
+                 and produced[n.input[1]].op_type == "DequantizeLinear"
+                 and produced[n.input[1]].input[0] in int8]
+    assert len(quantized) >= min_share * len(convs) and len(quantized) >= 1, (len(quantized), len(convs))
+
+
 def test_int8_candidates_are_really_int8(tiny_run, photos):
     """Count QuantizeLinear/DequantizeLinear around Conv and int8 weight initializers
     (as ONNX Runtime's own quantization tests do), and check the int8 output against
@@ -205,13 +218,7 @@ def test_int8_candidates_are_really_int8(tiny_run, photos):
     for name in ("a", "a-p30"):
         q = onnx.load(str(run / f"{name}-int8.onnx"))
         produced = {o: n for n in q.graph.node for o in n.output}
-        int8 = {i.name for i in q.graph.initializer if i.data_type in (onnx.TensorProto.INT8, onnx.TensorProto.UINT8)}
-        convs = [n for n in q.graph.node if n.op_type == "Conv"]
-        quantized = [n for n in convs if produced.get(n.input[0]) is not None
-                     and produced[n.input[0]].op_type == "DequantizeLinear"
-                     and produced[n.input[1]].op_type == "DequantizeLinear"
-                     and produced[n.input[1]].input[0] in int8]
-        assert len(quantized) >= 0.8 * len(convs) and len(quantized) >= 1
+        assert_int8_convs(q)
         # the output tail after the last conv (Sigmoid, scaling, Cast, layout) stays unquantized:
         # the only quantize step after the last conv is on that conv's own output
         last = max(i for i, n in enumerate(q.graph.node) if n.op_type == "Conv")
