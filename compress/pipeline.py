@@ -195,7 +195,7 @@ def _check_teacher(tpath: Path, recipe: Recipe) -> Path:
 
 def _content_splits(content: list[str], calibration: list[str] | None,
                     recipe: Recipe) -> tuple[ContentSet, dict[str, ContentSet]]:
-    data = load_content(content, min_items=1 if calibration else 3, min_side=recipe.crop)
+    data = load_content(content, min_items=1 if calibration else 3, min_side=recipe.min_content_side())
     if not calibration:
         return data, split_by_source(data, recipe)
     calib = load_content(calibration, min_items=1, min_side=recipe.crop)

@@ -155,6 +155,12 @@ class Recipe:
                 self.calibration_fraction + self.held_out_fraction >= 1:
             raise InputError("calibration_fraction + held_out_fraction must leave sources for distillation")
 
+    def min_content_side(self) -> int:
+        """The shortest side a distillation image may have. With whole frames (target_frame)
+        a photo is resized to the frame before crops are cut, so it must only not be blown up
+        more than 2x (half the frame's height); without, it must hold one crop."""
+        return self.frame_size()[1] // 2 if self.target_frame else self.crop
+
     def frame_size(self) -> tuple[int, int]:
         try:
             w, h = (int(v) for v in self.target_frame.lower().split("x"))

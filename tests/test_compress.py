@@ -134,6 +134,32 @@ def test_cached_targets_are_crops_of_whole_frame_outputs(teacher_onnx, tmp_path)
     assert not np.array_equal(other["inputs"], cache["inputs"])
 
 
+def test_whole_frame_distillation_keeps_photos_smaller_than_a_crop(tmp_path):
+    """With whole frames a photo is resized to the frame before crops are cut, so a 240 px
+    photo serves 256 px crops of a 640x360 frame; without frames it cannot (it would not hold
+    one crop). Common practice, no source: 240x320 is the bundled video stills' size."""
+    import cv2
+
+    from limner.compress.pipeline import _content_splits
+    from limner.compress.recipe import Recipe
+
+    rng = np.random.default_rng(3)
+    content = tmp_path / "content"
+    content.mkdir()
+    for i, (h, w) in enumerate([(240, 320), (400, 600), (170, 300)]):
+        cv2.imwrite(str(content / f"p{i}.png"), rng.integers(0, 256, (h, w, 3), dtype=np.uint8))
+    calib = tmp_path / "calib"
+    calib.mkdir()
+    cv2.imwrite(str(calib / "c.png"), rng.integers(0, 256, (300, 300, 3), dtype=np.uint8))
+    framed = Recipe(crop=256, target_frame="640x360")
+    assert framed.min_content_side() == 180
+    data, _ = _content_splits([str(content)], [str(calib)], framed)
+    assert sorted(i.image.shape[0] for i in data.items) == [240, 400]   # the 170 px one is out
+    cropped = Recipe(crop=256, target_frame="")
+    data, _ = _content_splits([str(content)], [str(calib)], cropped)
+    assert [i.image.shape[0] for i in data.items] == [400]
+
+
 def test_camera_augment_stays_within_its_stated_ranges(photos):
     """Exposure and white balance within the documented gains, noise that a denoiser
     (OpenCV's Gaussian blur as the reference low-pass) mostly removes, and the frame
