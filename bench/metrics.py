@@ -59,12 +59,14 @@ def _down2(x: np.ndarray) -> np.ndarray:
     return x.reshape(h // 2, 2, w // 2, 2).mean(axis=(1, 3))
 
 
-def ms_ssim(a: np.ndarray, b: np.ndarray, data_range: float = 255.0) -> float:
-    """Five-scale MS-SSIM, per channel, then averaged over channels."""
+def ms_ssim_scales(a: np.ndarray, b: np.ndarray, data_range: float = 255.0) -> np.ndarray:
+    """The five per-scale terms of MS-SSIM for each channel -> (channels, 5): contrast-structure
+    at scales 1-4 (finest first), full SSIM at scale 5, each clipped to 0. Where fidelity is
+    lost: low fine scales with high coarse ones is texture phase, low coarse ones is layout."""
     _check(a, b)
     if min(a.shape[:2]) <= (WIN - 1) * 2 ** 4:
         raise ValueError(f"MS-SSIM needs a short side above {(WIN - 1) * 16} px, got {min(a.shape[:2])}")
-    vals = []
+    rows = []
     for x, y in zip(_channels(a), _channels(b)):
         per_scale = []
         for s in range(len(MS_WEIGHTS)):
@@ -72,8 +74,13 @@ def ms_ssim(a: np.ndarray, b: np.ndarray, data_range: float = 255.0) -> float:
             per_scale.append(max(full.mean(), 0.0) if s == len(MS_WEIGHTS) - 1 else max(cs.mean(), 0.0))
             if s < len(MS_WEIGHTS) - 1:
                 x, y = _down2(x), _down2(y)
-        vals.append(float(np.prod(np.array(per_scale) ** MS_WEIGHTS)))
-    return float(np.mean(vals))
+        rows.append(per_scale)
+    return np.array(rows, dtype=np.float64)
+
+
+def ms_ssim(a: np.ndarray, b: np.ndarray, data_range: float = 255.0) -> float:
+    """Five-scale MS-SSIM, per channel, then averaged over channels."""
+    return float(np.mean(np.prod(ms_ssim_scales(a, b, data_range) ** MS_WEIGHTS, axis=1)))
 
 
 def psnr(a: np.ndarray, b: np.ndarray, data_range: float = 255.0) -> float:

@@ -12,7 +12,7 @@ import pytest
 from limner.runtime.viewing import ViewingGeometry
 from limner.bench.color import (ciede2000, scielab_delta_e, scielab_kernels,
                                 xyz_to_lab, bgr8_to_xyz)
-from limner.bench.metrics import ms_ssim, psnr, ssim
+from limner.bench.metrics import ms_ssim, ms_ssim_scales, psnr, ssim
 from limner.bench.stability import warp_error
 
 # Published test data (Sharma, Wu & Dalal 2005, Table 1), kept with its citation header
@@ -49,6 +49,25 @@ def test_ms_ssim_matches_pytorch_msssim(photos, name):
     t = lambda x: torch.from_numpy(np.ascontiguousarray(x)).permute(2, 0, 1)[None].double()  # noqa: E731
     ref = float(ref_ms_ssim(t(a), t(b), data_range=255))
     assert ms_ssim(a, b) == pytest.approx(ref, abs=1e-3)
+
+
+def test_ms_ssim_coarsest_scale_is_ssim_of_the_pooled_images(photos):
+    """The per-scale terms (tools/scale_report.py): the fifth is plain SSIM after four 2x2
+    average poolings (Wang, Simoncelli & Bovik 2003), checked against scikit-image's SSIM of
+    the 16x-pooled pair; they multiply back to ms_ssim with the paper's exponents."""
+    from skimage.metrics import structural_similarity
+
+    a = photos["fruits"][:352, :480]
+    b = _degraded(a, 4)
+    pool = lambda x: x.astype(np.float64).reshape(22, 16, 30, 16, 3).mean(axis=(1, 3))  # noqa: E731
+    terms = ms_ssim_scales(a, b)
+    assert terms.shape == (3, 5)
+    for c in range(3):
+        ref = structural_similarity(pool(a)[:, :, c], pool(b)[:, :, c], gaussian_weights=True, sigma=1.5,
+                                    use_sample_covariance=False, data_range=255)
+        assert terms[c, 4] == pytest.approx(ref, abs=1e-9)
+    weights = np.array([0.0448, 0.2856, 0.3001, 0.2363, 0.1333])   # the paper's exponents
+    assert ms_ssim(a, b) == pytest.approx(float(np.mean(np.prod(terms ** weights, axis=1))), abs=1e-12)
 
 
 def test_psnr_matches_scikit_image_and_opencv(photos):
