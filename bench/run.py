@@ -53,6 +53,18 @@ def list_models(specs: list[str]) -> list[Path]:
     return uniq
 
 
+def display_names(models: list[Model]) -> list[str]:
+    """Each model's name in the report: its own name, or "folder/name" where two models share
+    a name (the same ladder from two runs), so that rows, plot labels and samples stay apart."""
+    own = [m.meta.name or m.path.stem for m in models]
+    dup = {n for n in own if own.count(n) > 1}
+    named = [f"{m.path.parent.name}/{n}" if n in dup else n for m, n in zip(models, own)]
+    for i, n in enumerate(named):  # same folder name too: the path's index keeps them apart
+        if named.count(n) > 1:
+            named[i] = f"{n}#{i}"
+    return named
+
+
 def check_overlap(models: list[Model], held_out: list[Path]) -> dict[str, str]:
     """Refuse held-out images that a model was trained, distilled or calibrated on."""
     hashes = {file_sha256(p): p for p in held_out}
@@ -124,7 +136,7 @@ def bench(models: list[str], teacher: str, content: list[str], out: Path,
     t_clean = _run_all(teacher_m, images)
     rows = []
     floor = None
-    for m in loaded:
+    for m, name in zip(loaded, display_names(loaded)):
         bar.update(0, f"{m.path.name}: quality")
         clean = t_clean if m is teacher_m else _run_all(m, images)
         noisy_out = _run_all(m, noisy)
@@ -138,7 +150,7 @@ def bench(models: list[str], teacher: str, content: list[str], out: Path,
         speed = measure_in_subprocess(str(m.path), [str(p) for p in held_out], sizes, cfg.threads,
                                       cfg.warmup, cfg.frames)
         bar.update(1, f"{m.path.name}: done")
-        rows.append({"path": str(m.path), "name": m.meta.name or m.path.stem, "role": m.meta.role,
+        rows.append({"path": str(m.path), "name": name, "role": m.meta.role,
                      "precision": m.meta.precision, "style_name": m.meta.style, "parent": m.meta.parent,
                      "sha256": m.sha256(), "size_bytes": m.path.stat().st_size,
                      "size_multiple": m.size_multiple, "arch": m.meta.arch,
@@ -148,7 +160,7 @@ def bench(models: list[str], teacher: str, content: list[str], out: Path,
         if m is teacher_m:
             samples = {"teacher": clean[cfg.sample_image % len(clean)]}
         else:
-            samples[m.meta.name or m.path.stem] = clean[cfg.sample_image % len(clean)]
+            samples[name] = clean[cfg.sample_image % len(clean)]
     bar.close()
     for r in rows:  # paths relative to the report folder: the report can move with its models
         r["path"] = _rel(r["path"], out)

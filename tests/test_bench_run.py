@@ -112,3 +112,21 @@ def test_resolutions_flag_without_640x360_sets_the_plot_resolution(candidates, t
                 "--config", str(cfg), "--resolutions", "320x180", "-o", str(out)], tmp_path)
     assert r.returncode == 0, r.stderr
     assert json.loads((out / "report.json").read_text())["config"]["plot_resolution"] == "320x180"
+
+
+def test_models_sharing_a_name_get_their_folder_in_the_report():
+    """Two runs of one recipe make models of one name; the report must keep their rows and
+    samples apart (common practice, no source)."""
+    from types import SimpleNamespace as NS
+
+    from limner.bench.run import display_names
+
+    def model(path: str, name: str):
+        return NS(path=Path(path), meta=NS(name=name))
+
+    names = display_names([model("t/teacher.onnx", "teacher"), model("runs/a/half.onnx", "half"),
+                           model("runs/b/half.onnx", "half"), model("runs/b/tiny.onnx", ""),
+                           model("x/a/half.onnx", "half")])
+    assert names[0] == "teacher" and names[2] == "b/half" and names[3] == "tiny"
+    assert names[1].startswith("a/half") and names[4].startswith("a/half")  # two folders named a
+    assert len(set(names)) == len(names), names
