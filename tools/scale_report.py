@@ -19,6 +19,7 @@ import cv2
 import numpy as np
 
 from limner.bench.metrics import MS_WEIGHTS, ms_ssim_scales
+from limner.bench.run import display_names
 from limner.runtime.images import cover_crop, list_images, read_image
 from limner.runtime.model import load_model
 
@@ -58,9 +59,9 @@ def main() -> None:
     teacher = load_model(a.teacher)
     targets = [teacher.run(p) for p in photos]
     rows = {name: _row([(f(t), t) for t in targets]) for name, f in YARDSTICKS.items()}
-    for mp in a.models:
-        m = load_model(mp)
-        rows[mp.stem] = _row([(m.run(p), t) for p, t in zip(photos, targets)])
+    models = [load_model(mp) for mp in a.models]
+    for m, name in zip(models, display_names(models)):  # FOLDER/NAME where two share a name
+        rows[name] = _row([(m.run(p), t) for p, t in zip(photos, targets)])
     print(f"{'':34s} {'MS-SSIM':>8s}   scale 1 (finest) .. 5 (coarsest)")
     for name, r in rows.items():
         print(f"{name:34s} {r['ms_ssim']:8.3f}   " + "  ".join(f"{v:.3f}" for v in r["scales"]))
