@@ -36,20 +36,36 @@ def test_train_config_warm_starts_survive_bundling():
 
 
 def test_bundled_recipes_load_and_their_warm_starts_exist():
-    """Each configs/compress recipe loads, and every student's init is a file in the repository
-    or the checkpoint of a student that runs earlier in the same recipe (common practice, no
-    source: a recipe that a fresh clone cannot run is a broken record of how a ladder was built)."""
-    recipes = sorted((REPO / "configs" / "compress").glob("*.toml"))
+    """Each configs/compress recipe loads, and every student's init is a file in the repository,
+    the checkpoint of a student that runs earlier in the same recipe, or the checkpoint that
+    another committed recipe writes when run as its header says (`-o runs/STEM`), with that
+    recipe named in this one's header as the run to do first (common practice, no source: a
+    recipe that a fresh clone cannot run is a broken record of how a ladder was built)."""
+    folder = REPO / "configs" / "compress"
+    recipes = sorted(folder.glob("*.toml"))
     assert {"ember-hed.toml", "short-hed.toml"} <= {p.name for p in recipes}
+    chained = 0
     for path in recipes:
         recipe = load(Recipe, path)
+        header = path.read_text()
         earlier: set[str] = set()
         for s in recipe.student:
             if s.init:
                 init = Path(s.init)
-                made_here = init.parts[-3:-1] in {("work", n) for n in earlier} and init.name == "checkpoint.pt"
-                assert made_here or (REPO / init).is_file(), f"{path.name}: student {s.name}: init {s.init} missing"
+                ckpt = init.name == "checkpoint.pt" and len(init.parts) >= 3 and init.parts[-3] == "work"
+                made_here = ckpt and init.parts[-2] in earlier
+                made_before = False
+                if ckpt and not made_here and init.parts[:-4] == ("runs",) and len(init.parts) == 5:
+                    stem, student = init.parts[1], init.parts[3]
+                    other = folder / f"{stem}.toml"
+                    made_before = (other.is_file() and f"configs/compress/{stem}.toml" in header
+                                   and f"-o runs/{stem}" in other.read_text()
+                                   and student in {t.name for t in load(Recipe, other).student})
+                    chained += made_before
+                assert made_here or made_before or (REPO / init).is_file(), \
+                    f"{path.name}: student {s.name}: init {s.init} missing"
             earlier.add(s.name)
+    assert chained >= 1  # ember-long-half6 continues ember-deep-128's student
 
 
 def test_unknown_key_is_named(tmp_path):
