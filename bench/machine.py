@@ -7,7 +7,10 @@ import platform
 
 import onnxruntime as ort
 
-FEATURES = ("avx2", "avx512f", "avx512_vnni", "avx_vnni", "fma", "neon", "asimd", "asimddp", "i8mm")
+# CPU flags that decide fp32 and int8 speed (Linux /proc/cpuinfo names): AVX2/AVX-512 and FMA for
+# fp32, VNNI and AMX-INT8 (x86) or the dot-product and i8mm extensions (ARM) for int8.
+FEATURES = ("avx2", "avx512f", "avx512_vnni", "avx_vnni", "amx_int8", "fma", "neon", "asimd", "asimddp",
+            "i8mm")
 
 
 def cpu_model() -> str:

@@ -100,17 +100,51 @@ def from_dict(cls: type[T], data: dict, where: str = "") -> T:
         raise ConfigError(f"{where or cls.__name__}: {e}") from None
 
 
+BASE_KEY = "base"
+
+
+def _merge(base: dict, top: dict) -> dict:
+    """`top` over `base`: tables merge key by key, anything else (values, lists, arrays of
+    tables such as a recipe's [[student]] list) is replaced whole."""
+    out = dict(base)
+    for k, v in top.items():
+        out[k] = _merge(out[k], v) if isinstance(v, dict) and isinstance(out.get(k), dict) else v
+    return out
+
+
+def read_toml(path: Path, _seen: tuple[Path, ...] = ()) -> dict:
+    """A TOML file as a dict, with its `base = "other.toml"` (a path relative to the file)
+    read first and overridden by this file's keys: configs that differ in a few settings
+    name their common file instead of repeating it."""
+    path = Path(path)
+    if not path.is_file():
+        raise ConfigError(f"{path}: no such config file")
+    try:
+        data = tomllib.loads(path.read_text())
+    except tomllib.TOMLDecodeError as e:
+        raise ConfigError(f"{path}: not valid TOML ({e})") from None
+    if BASE_KEY not in data:
+        return data
+    ref = data.pop(BASE_KEY)
+    if not isinstance(ref, str) or not ref:
+        raise ConfigError(f"{path}: {BASE_KEY} = {ref!r}: expected the path of another TOML file")
+    base_path = (path.parent / ref).resolve()
+    chain = _seen + (path.resolve(),)
+    if base_path in chain:
+        raise ConfigError(f"{path}: {BASE_KEY} = {ref!r} includes itself "
+                          f"({' -> '.join(p.name for p in chain + (base_path,))})")
+    if not base_path.is_file():
+        raise ConfigError(f"{path}: {BASE_KEY} = {ref!r}: no such file ({base_path})")
+    return _merge(read_toml(base_path, chain), data)
+
+
 def load(cls: type[T], path: Path | None, overrides: dict | None = None) -> T:
-    """Load TOML at `path` (or defaults when None), apply non-None overrides, validate."""
+    """Load TOML at `path` (or defaults when None; `base` includes resolved, read_toml),
+    apply non-None overrides, validate."""
     data: dict = {}
     if path is not None:
         path = Path(path)
-        if not path.is_file():
-            raise ConfigError(f"{path}: no such config file")
-        try:
-            data = tomllib.loads(path.read_text())
-        except tomllib.TOMLDecodeError as e:
-            raise ConfigError(f"{path}: not valid TOML ({e})") from None
+        data = read_toml(path)
     for k, v in (overrides or {}).items():
         if v is not None:
             data[k] = v

@@ -68,6 +68,50 @@ def test_bundled_recipes_load_and_their_warm_starts_exist():
     assert chained >= 1  # ember-long-half6 continues ember-deep-128's student
 
 
+def test_base_include_merges_tables_and_replaces_lists(tmp_path):
+    """`base = "FILE"`: the named TOML (relative to the including file) is read first; tables
+    merge key by key, lists and arrays of tables are replaced whole, the file's own keys win
+    (common practice for layered configs, no source). Parsing itself is TOML 1.0 via tomllib."""
+    (tmp_path / "common").mkdir()
+    (tmp_path / "common" / "shared.toml").write_text(
+        'crop = 96\nbatch = 2\n[loss]\ngram = 0.5\nfeature = 2.0\nfeature_layers = ["relu2_2", "relu3_3"]\n'
+        '[[student]]\nname = "from-base"\nknobs = {width = 0.5}\n')
+    top = tmp_path / "r.toml"
+    top.write_text('base = "common/shared.toml"\nbatch = 3\n[loss]\ngram = 3.0\nfeature_layers = ["relu2_2"]\n'
+                   '[[student]]\nname = "own"\nknobs = {width = 0.25}\n')
+    r = load(Recipe, top)
+    assert (r.crop, r.batch) == (96, 3)                       # kept from base, overridden
+    assert (r.loss.gram, r.loss.feature) == (3.0, 2.0)        # table merged key by key
+    assert r.loss.feature_layers == ["relu2_2"]               # list replaced, not appended
+    assert [s.name for s in r.student] == ["own"]             # array of tables replaced
+    assert "base" not in dumps_toml(r)                        # the saved config is resolved
+
+
+def test_base_include_errors_name_the_file(tmp_path):
+    a, b = tmp_path / "a.toml", tmp_path / "b.toml"
+    a.write_text('base = "b.toml"\n')
+    b.write_text('base = "a.toml"\n')
+    with pytest.raises(ConfigError, match=r"includes itself \(a.toml -> b.toml -> a.toml\)"):
+        load(Recipe, a)
+    a.write_text('base = "missing.toml"\n')
+    with pytest.raises(ConfigError, match=r"base = 'missing.toml': no such file"):
+        load(Recipe, a)
+    a.write_text("base = 3\n")
+    with pytest.raises(ConfigError, match="base = 3: expected the path"):
+        load(Recipe, a)
+
+
+def test_recipes_share_their_common_settings():
+    """Every HED ladder recipe names configs/compress/common/hed-distill.toml instead of
+    repeating its [loss] and [int8] blocks (the resolved values are what the runs used)."""
+    for path in sorted((REPO / "configs" / "compress").glob("*.toml")):
+        text = path.read_text()
+        if 'loss_net = "hed"' in text or "base =" in text:
+            assert 'base = "common/hed-distill.toml"' in text, path.name
+            assert "[int8]" not in text, f"{path.name} repeats the shared [int8] block"
+            assert load(Recipe, path).loss_net == "hed"
+
+
 def test_unknown_key_is_named(tmp_path):
     p = tmp_path / "c.toml"
     p.write_text("size = 128\nstyle_wieght = 3.0\n")
