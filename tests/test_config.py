@@ -52,13 +52,14 @@ def test_bundled_recipes_load_and_their_warm_starts_exist():
         for s in recipe.student:
             if s.init:
                 init = Path(s.init)
-                ckpt = init.name == "checkpoint.pt" and len(init.parts) >= 3 and init.parts[-3] == "work"
-                made_here = ckpt and init.parts[-2] in earlier
+                made_here = init.parts[-3:-1] in {("work", n) for n in earlier} and init.name == "checkpoint.pt"
                 made_before = False
-                if ckpt and not made_here and init.parts[:-4] == ("runs",) and len(init.parts) == 5:
-                    stem, student = init.parts[1], init.parts[3]
+                if not made_here and len(init.parts) == 5 and init.parts[0] == "runs" \
+                        and init.parts[2:5:2] == ("work", "checkpoint.pt"):
+                    _, stem, _, student, _ = init.parts   # runs/STEM/work/STUDENT/checkpoint.pt
                     other = folder / f"{stem}.toml"
-                    made_before = (other.is_file() and f"configs/compress/{stem}.toml" in header
+                    made_before = (other.is_file()
+                                   and f"configs/compress/{stem}.toml" in header
                                    and f"-o runs/{stem}" in other.read_text()
                                    and student in {t.name for t in load(Recipe, other).student})
                     chained += made_before
