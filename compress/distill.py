@@ -9,6 +9,7 @@ teacher's output for the clean frame, so students can be steadier than their tea
 """
 from __future__ import annotations
 
+import hashlib
 import math
 import time
 from pathlib import Path
@@ -31,7 +32,8 @@ from .recipe import LossWeights, Recipe
 from .ssim_loss import ms_ssim
 
 
-def build_cache(teacher: Model, data: ContentSet, recipe: Recipe, path: Path) -> dict[str, np.ndarray]:
+def build_cache(teacher: Model, data: ContentSet, recipe: Recipe, path: Path,
+                teacher_sha: str) -> dict[str, np.ndarray]:
     """Random crops of the distillation set and the teacher's outputs, computed once.
 
     With `recipe.target_frame` set (the default), the teacher styles whole camera-sized
@@ -42,11 +44,14 @@ def build_cache(teacher: Model, data: ContentSet, recipe: Recipe, path: Path) ->
     students are judged on whole frames. Crop offsets are multiples of 8 (the students'
     total stride), so the texture's phase on the pixel grid matches what a student sees.
     Without it, the teacher styles each crop alone (earlier behaviour).
+    A cache file at `path` is reused only when it was built with the same sampling settings,
+    the same teacher (`teacher_sha`, the SHA-256 of its model file) and the same content.
     """
     path = Path(path)
     n, c = recipe.cache_crops, recipe.crop
-    key = (f"v3:{recipe.target_frame or 'crop'}:{recipe.crops_per_frame}:{recipe.seed}:"
-           f"{'camera' if recipe.camera_augment else 'plain'}")
+    inputs = hashlib.sha256(",".join([teacher_sha, *data.hashes()]).encode()).hexdigest()[:16]
+    key = (f"v4:{recipe.target_frame or 'crop'}:{recipe.crops_per_frame}:{recipe.seed}:"
+           f"{'camera' if recipe.camera_augment else 'plain'}:{inputs}")
     if path.exists():
         z = dict(np.load(path))
         if z["inputs"].shape[0] == n and z["inputs"].shape[1] == c and str(z.get("key", "")) == key:

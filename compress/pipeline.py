@@ -91,6 +91,16 @@ def _calibration_frames(data: ContentSet, n: int, side: int, mult: int, seed: in
     return frames
 
 
+def _widen(old: torch.Tensor, fresh: torch.Tensor) -> torch.Tensor:
+    """A conv weight (out, in, kh, kw) or bias (out,) of a wider layer: the old values in
+    the leading channels, zero weights from the new input channels, fresh new outputs."""
+    w = fresh.clone()
+    if w.dim() == 4:
+        w[:, old.shape[1]:] = 0
+    w[tuple(slice(0, n) for n in old.shape)] = old
+    return w
+
+
 def init_from(path: str, fresh: torch.nn.Module, name: str) -> torch.nn.Module:
     """Start a student from a checkpoint (e.g. one distilled with other targets). The
     architecture must be the one the recipe's knobs build, except that a student with
@@ -100,19 +110,32 @@ def init_from(path: str, fresh: torch.nn.Module, name: str) -> torch.nn.Module:
     downscale, keep their fresh initialisation; and a student may start from one with
     fewer residual blocks of the same widths: the extra blocks come last and start as
     the identity (their last conv zero), so the deeper student starts as the shallower
-    one and training only adds to it."""
+    one and training only adds to it; and a student may start from a narrower one
+    (`width`, with resize upsampling): every conv keeps the old weights in its leading
+    channels, its new output channels keep their fresh initialisation and its weights
+    from new input channels start at zero, so the wider student computes exactly what the
+    narrower one did (function-preserving widening, as in Net2Net, Chen et al. 2016, with
+    zero-initialised consumers instead of copied units) and training uses the new
+    channels from there."""
     try:
         old = ckptmod.load(Path(path)).model()
     except ckptmod.CheckpointError as e:
         raise CompressError(f"student {name}: init: {e}") from None
+    widths = ("channels", "up_channels", "hidden", "context")
     def shape(args: dict) -> dict:
-        return {k: v for k, v in args.items() if k not in ("knobs", "context", "downscale", "hidden")}
-    old_hidden, new_hidden = list(old.model_args["hidden"]), list(fresh.model_args["hidden"])
-    if shape(old.model_args) != shape(fresh.model_args) or \
-            new_hidden[:len(old_hidden)] != old_hidden or \
-            old.model_args.get("context", 0) not in (0, fresh.model_args.get("context", 0)):
+        return {k: v for k, v in args.items() if k not in ("knobs", "downscale") + widths}
+    oa, fa = old.model_args, fresh.model_args
+    old_hidden, new_hidden = list(oa["hidden"]), list(fa["hidden"])
+    fits = (len(oa["channels"]) == len(fa["channels"]) and len(old_hidden) <= len(new_hidden)
+            and all(o <= f for k in ("channels", "up_channels")
+                    for o, f in zip(oa[k], fa[k], strict=True))
+            and all(o <= f for o, f in zip(old_hidden, new_hidden))
+            and (not oa.get("context") or 0 < oa["context"] <= fa.get("context", 0)))
+    widened = any(oa[k] != fa[k] for k in ("channels", "up_channels")) or \
+        new_hidden[:len(old_hidden)] != old_hidden
+    if shape(oa) != shape(fa) or not fits or (widened and fa["upsample"] != "resize"):
         raise CompressError(f"student {name}: init={path} holds a different architecture "
-                            f"({old.model_args.get('knobs')}) than the recipe's knobs")
+                            f"({oa.get('knobs')}) than the recipe's knobs")
     # the context block shifts the indices of the layers after it: match tensors in order
     film = (f"net.{fresh.context_at}." if getattr(fresh, "context_at", -1) >= 0
             and not old.model_args.get("context") else None)
@@ -131,15 +154,18 @@ def init_from(path: str, fresh: torch.nn.Module, name: str) -> torch.nn.Module:
     if len(targets) != len(old_sd):
         raise CompressError(f"student {name}: init={path}: weights do not fit the recipe's knobs")
     pairs = list(zip(targets, old_sd.values()))
-    misfit = [k for k, v in pairs if fresh_sd[k].shape != v.shape]
-    rescaled = old.model_args.get("downscale", 1) != fresh.model_args.get("downscale", 1)
-    if misfit and not rescaled:
-        raise CompressError(f"student {name}: init={path}: weights do not fit the recipe's knobs")
-    if rescaled:  # only the first and last convs (weight and bias) may differ
-        ends = set(targets[:2] + targets[-2:])
-        if not set(misfit) <= ends:
+    rescaled = oa.get("downscale", 1) != fa.get("downscale", 1)
+    ends = set(targets[:2] + targets[-2:]) if rescaled else set()  # these start fresh
+    for k, v in pairs:
+        if k in ends and fresh_sd[k].shape != v.shape:
+            continue
+        if fresh_sd[k].shape == v.shape:
+            fresh_sd[k] = v
+        elif widened and v.dim() == fresh_sd[k].dim() and \
+                all(o <= f for o, f in zip(v.shape, fresh_sd[k].shape)):
+            fresh_sd[k] = _widen(v, fresh_sd[k])
+        else:
             raise CompressError(f"student {name}: init={path}: weights do not fit the recipe's knobs")
-    fresh_sd.update({k: v for k, v in pairs if k not in misfit})
     fresh.load_state_dict(fresh_sd)
     return fresh.train()
 
@@ -240,11 +266,11 @@ class _Run:
                                          else None, recipe.loss_seed)
         cache_path = out / "work" / "cache.npz"
         if main:  # the teacher's outputs are computed once, by rank 0; the others read its file
-            cache = build_cache(tmodel, splits["distillation"], recipe, cache_path)
+            cache = build_cache(tmodel, splits["distillation"], recipe, cache_path, teacher_sha)
             _write_json(manifest_path, manifest)
         world.barrier()
         if not main:
-            cache = build_cache(tmodel, splits["distillation"], recipe, cache_path)
+            cache = build_cache(tmodel, splits["distillation"], recipe, cache_path, teacher_sha)
         return cls(out=out, recipe=recipe, world=world, device=device, log=log, tpath=tpath,
                    teacher_onnx=teacher_onnx, tmodel=tmodel, teacher_sha=teacher_sha, splits=splits,
                    seen=sorted(set(splits["distillation"].hashes()) | set(tmodel.meta.data_sha256)),

@@ -17,6 +17,7 @@ from limner.compress.layers import FrameFiLM, Residual
 from limner.compress.prune import conv_weight_count, prune, prune_to, spaces
 from limner.compress.registry import build
 from limner.compress.students import PRESETS
+from limner.runtime.hashing import file_sha256
 from limner.runtime.model import load_model
 
 from conftest import PY, REPO
@@ -117,7 +118,8 @@ def test_cached_targets_are_crops_of_whole_frame_outputs(teacher_onnx, tmp_path)
     recipe = Recipe(crop=64, cache_crops=6, target_frame="160x96", crops_per_frame=3)
     data = load_content(PHOTOS, min_side=64)
     teacher = load_model(teacher_onnx, threads=1)
-    cache = build_cache(teacher, data, recipe, tmp_path / "cache.npz")
+    sha = file_sha256(teacher_onnx)
+    cache = build_cache(teacher, data, recipe, tmp_path / "cache.npz", sha)
     for f in range(2):
         frame = sample_frame(data, np.random.default_rng([recipe.seed, 7919, f]), 160, 96, recipe.camera_augment)
         out = teacher.run(frame)
@@ -130,8 +132,15 @@ def test_cached_targets_are_crops_of_whole_frame_outputs(teacher_onnx, tmp_path)
             assert np.array_equal(cache["targets"][i], out[y:y + 64, x:x + 64, ::-1])
             assert np.array_equal(cache["frames"][cache["frame_index"][i]], frame[:, :, ::-1])
     # a changed recipe rebuilds the cache instead of reusing stale targets
-    other = build_cache(teacher, data, Recipe(crop=64, cache_crops=6, target_frame=""), tmp_path / "cache.npz")
+    other = build_cache(teacher, data, Recipe(crop=64, cache_crops=6, target_frame=""), tmp_path / "cache.npz",
+                        sha)
     assert not np.array_equal(other["inputs"], cache["inputs"])
+    # so do another teacher and other content: the file's key names both
+    again = build_cache(teacher, data, recipe, tmp_path / "cache.npz", sha)
+    assert np.array_equal(again["inputs"], cache["inputs"]) and again["key"] == cache["key"]
+    assert build_cache(teacher, data, recipe, tmp_path / "cache.npz", "0" * 64)["key"] != cache["key"]
+    fewer = load_content(PHOTOS[:1], min_side=64)
+    assert build_cache(teacher, fewer, recipe, tmp_path / "cache.npz", sha)["key"] != cache["key"]
 
 
 def test_whole_frame_distillation_keeps_photos_smaller_than_a_crop(tmp_path):
@@ -309,6 +318,39 @@ def test_student_init_checkpoint_must_match_knobs(tmp_path):
         init_from(str(tmp_path / "tiny.pt"), build("student", **asdict(PRESETS["s-dw"])), "dw")
     with pytest.raises(CompressError, match="no such checkpoint"):
         init_from(str(tmp_path / "missing.pt"), net, "tiny")
+
+
+def test_wider_student_starts_as_the_narrower_one(tmp_path):
+    """Function-preserving widening (Net2Net, Chen et al. 2016; here with zero-initialised
+    consumer weights): a student at a larger `width` started from a narrower checkpoint
+    gives the same output on any input, and its new channels are live (random producers)."""
+    from limner.compress import checkpoint as ck
+    from limner.compress.pipeline import CompressError, init_from
+
+    knobs = {"width": 0.25, "blocks": 2, "kernel_in": 3, "kernel_out": 3, "downscale": 2,
+             "upsample": "resize", "context": True}
+    torch.manual_seed(0)
+    net = build("student", **knobs)
+    for m in net.modules():  # a trained-looking context block (it starts at zero)
+        if isinstance(m, torch.nn.Conv2d) and not m.weight.any():
+            torch.nn.init.normal_(m.weight, std=0.1)
+    ck.save(ck.from_model(net, {"name": "narrow"}), tmp_path / "narrow.pt")
+    wide = init_from(str(tmp_path / "narrow.pt"), build("student", **knobs | {"width": 0.5, "blocks": 3}),
+                     "wide").eval()
+    assert wide.model_args["channels"] == [16, 32, 64] and net.model_args["channels"] == [8, 16, 32]
+    x = torch.rand(2, 3, 64, 96)
+    with torch.no_grad():
+        assert torch.allclose(wide(x), net.eval()(x), atol=1e-6)
+    first = wide.net[1].weight                                   # (16, 12, 3, 3)
+    assert first[8:].abs().sum() > 0                             # new outputs: a random start
+    assert torch.equal(first[:8], net.net[1].weight)             # old outputs: carried over
+    assert not wide.net[3].weight[:, 8:].any()                   # from new inputs: zero
+    with pytest.raises(CompressError, match="different architecture"):  # narrower: no
+        init_from(str(tmp_path / "narrow.pt"), build("student", **knobs | {"width": 0.125}), "thin")
+    shuffled = knobs | {"upsample": "shuffle"}  # a pixel-shuffle channel is four filters: no
+    ck.save(ck.from_model(build("student", **shuffled), {"name": "narrow-s"}), tmp_path / "narrow-s.pt")
+    with pytest.raises(CompressError, match="different architecture"):
+        init_from(str(tmp_path / "narrow-s.pt"), build("student", **shuffled | {"width": 0.5}), "wide-s")
 
 
 def test_unknown_student_loss_setting_is_named(tmp_path):
