@@ -38,12 +38,17 @@ def place_labels(fig, ax, pts: list[tuple[float, float]], names: list[str],
     places above and below it (then on its left), with a thin leader line once it is
     away from its point. Models of similar speed and quality sit in clusters, where
     labels at one fixed offset print over each other. Markers of diameter `marker_pt`
-    (points) are kept clear as well, and labels stay inside the figure. Call it once the
+    (points) and the legend are kept clear as well, and labels stay inside the axes, below
+    the title. Call it once the
     axes are final (scales, limits, layout): the boxes are measured in display
     coordinates. Returns the labels' boxes."""
     fig.canvas.draw()  # fixes the axes limits and transforms the boxes are measured in
     renderer = fig.canvas.get_renderer()
     markers = _marker_boxes(fig, ax, pts, marker_pt)
+    legend = ax.get_legend()
+    if legend is not None:
+        markers.append(legend.get_window_extent(renderer))
+    area = ax.bbox
     steps = [0.0] + [d * k for k in range(1, 12) for d in (-1.0, 1.0)]
     tries = [(6.0, 4.0 + 11.0 * k) for k in steps] + [(-6.0, 4.0 + 11.0 * k) for k in steps]
     placed = []
@@ -56,8 +61,7 @@ def place_labels(fig, ax, pts: list[tuple[float, float]], names: list[str],
                             if far else None)
             t.update_positions(renderer)
             box = Text.get_window_extent(t, renderer)  # the text alone, not its leader line
-            inside = fig.bbox.x0 <= box.x0 and box.x1 <= fig.bbox.x1 and \
-                fig.bbox.y0 <= box.y0 and box.y1 <= fig.bbox.y1
+            inside = area.x0 <= box.x0 and box.x1 <= area.x1 and area.y0 <= box.y0 and box.y1 <= area.y1
             if (inside and not any(box.overlaps(b) for b in placed + markers)) or n == len(tries) - 1:
                 break
             t.remove()
@@ -65,9 +69,10 @@ def place_labels(fig, ax, pts: list[tuple[float, float]], names: list[str],
     return placed
 
 
-def pareto_plot(rep: dict, path: Path) -> tuple[list, list]:
-    """Writes the plot; returns the label boxes and the marker boxes as saved (display
-    coordinates), for checking that no label covers another label or a marker."""
+def pareto_plot(rep: dict, path: Path) -> tuple[list, list, dict]:
+    """Writes the plot; returns the label boxes, the marker boxes and the boxes of the axes,
+    legend and title as saved (display coordinates), for checking that no label covers
+    another label, a marker, the legend or the title."""
 
     cfg = rep["config"]
     axis, res = cfg["quality_axis"], cfg["plot_resolution"]
@@ -111,5 +116,7 @@ def pareto_plot(rep: dict, path: Path) -> tuple[list, list]:
     renderer = fig.canvas.get_renderer()
     labels = [Text.get_window_extent(t, renderer) for t in ax.texts]
     markers = _marker_boxes(fig, ax, pts, MARKER_PT)
+    frame = {"axes": ax.bbox.frozen(), "legend": ax.get_legend().get_window_extent(renderer),
+             "title": ax.title.get_window_extent(renderer)}
     plt.close(fig)
-    return labels, markers
+    return labels, markers, frame

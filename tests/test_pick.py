@@ -124,8 +124,8 @@ def test_plot_labels_in_a_cluster_do_not_overlap():
 
 def test_pareto_plot_labels_clear_in_the_saved_figure(tmp_path):
     """The labels are placed in the figure's final layout (log scale, margins, legend), so
-    in the saved figure no label covers another or a marker. A made-up ladder of 14
-    models, clustered the way a real one is (layout check only)."""
+    in the saved figure no label covers another, a marker, the legend or the title. A
+    made-up ladder of 17 models, clustered the way a real one is (layout check only)."""
     from limner.bench.plots import pareto_plot
 
     def model(name, q, fps, prec="fp32", teacher=False):
@@ -137,13 +137,18 @@ def test_pareto_plot_labels_clear_in_the_saved_figure(tmp_path):
     for k in range(6):
         models.append(model(f"half-ctx-{k}", 0.740 + 0.002 * k, 18.0 + 0.4 * k))
         models.append(model(f"half-ctx-{k}-int8", 0.738 + 0.002 * k, 16.5 + 0.4 * k, "int8"))
-    models.append(model("tiny", 0.67, 49.0))
+    for k in range(4):  # a cluster at the top of the axes: stacked labels reach the title
+        models.append(model(f"tiny-{k}", 0.67 + 0.002 * k, 49.0 - 1.5 * k, "int8" if k % 2 else "fp32"))
     rep = {"config": {"quality_axis": "ms_ssim", "plot_resolution": "640x360", "min_fps": 30,
                       "min_ms_ssim": 0.8},
            "resolutions": ["640x360"], "models": models, "floor": {"ms_ssim": {"mean": 0.978}},
            "machine": {"cpu": "test", "cores": 2, "onnxruntime": "x"}}
-    labels, markers = pareto_plot(rep, tmp_path / "pareto.png")
+    labels, markers, frame = pareto_plot(rep, tmp_path / "pareto.png")
     assert len(labels) == len(markers) == len(models)
+    # every label inside the axes (so clear of the title above them) and off the legend
+    assert all(frame["axes"].x0 <= b.x0 and b.x1 <= frame["axes"].x1 and
+               frame["axes"].y0 <= b.y0 and b.y1 <= frame["axes"].y1 for b in labels)
+    assert not any(b.overlaps(frame["legend"]) or b.overlaps(frame["title"]) for b in labels)
     assert not any(a.overlaps(b) for i, a in enumerate(labels) for b in labels[i + 1:])
     assert not any(a.overlaps(m) for a in labels for m in markers)
     assert (tmp_path / "pareto.png").stat().st_size > 10_000
