@@ -32,6 +32,13 @@ from .recipe import LossWeights, Recipe
 from .ssim_loss import ms_ssim
 
 
+def cache_key(recipe: Recipe, data: ContentSet, teacher_sha: str) -> str:
+    """What a teacher-target cache was built from: sampling settings, teacher, content."""
+    inputs = hashlib.sha256(",".join([teacher_sha, *data.hashes()]).encode()).hexdigest()[:16]
+    return (f"v4:{recipe.target_frame or 'crop'}:{recipe.crops_per_frame}:{recipe.seed}:"
+            f"{'camera' if recipe.camera_augment else 'plain'}:{inputs}")
+
+
 def build_cache(teacher: Model, data: ContentSet, recipe: Recipe, path: Path,
                 teacher_sha: str) -> dict[str, np.ndarray]:
     """Random crops of the distillation set and the teacher's outputs, computed once.
@@ -49,9 +56,7 @@ def build_cache(teacher: Model, data: ContentSet, recipe: Recipe, path: Path,
     """
     path = Path(path)
     n, c = recipe.cache_crops, recipe.crop
-    inputs = hashlib.sha256(",".join([teacher_sha, *data.hashes()]).encode()).hexdigest()[:16]
-    key = (f"v4:{recipe.target_frame or 'crop'}:{recipe.crops_per_frame}:{recipe.seed}:"
-           f"{'camera' if recipe.camera_augment else 'plain'}:{inputs}")
+    key = cache_key(recipe, data, teacher_sha)
     if path.exists():
         z = dict(np.load(path))
         if z["inputs"].shape[0] == n and z["inputs"].shape[1] == c and str(z.get("key", "")) == key:
