@@ -15,7 +15,9 @@ from .sources import open_source
 
 
 def capture(source: str | None, frames: int, out: Path, every: int = 1, quality: int = 95) -> list[Path]:
-    """Save `frames` frames (every `every`-th frame read) as JPEGs named frame_000001.jpg ..."""
+    """Save `frames` frames (every `every`-th frame read) as JPEGs named frame_000001.jpg ...
+    Ctrl-C or SIGTERM ends a capture normally: the frames written so far are kept and returned
+    (each file is written atomically, so none is left half-written)."""
     if frames < 1:
         raise InputError(f"--frames {frames}: must be at least 1")
     if every < 1:
@@ -47,6 +49,8 @@ def capture(source: str | None, frames: int, out: Path, every: int = 1, quality:
                 raise InputError(f"{path}: cannot write the frame: {why}{kept}") from None
             written.append(path)
             bar.update(1)
+    except KeyboardInterrupt:  # the operator's way to end a capture from a camera
+        pass
     finally:
         src.release()
         bar.close()

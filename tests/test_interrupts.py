@@ -32,12 +32,34 @@ TRAIN = REPO / "runtime" / "assets" / "photos" / "train"
 TINY_TRAIN = "size = 32\nbatch = 1\nsteps = 60\nstyle_size = 64\ncheckpoint_every = 5\npreview_every = 1000\n"
 
 
+def _long_clip(d: Path, frames: int = 6000) -> Path:
+    """A video long enough that a capture is still running when the signal lands (the bundled
+    clip has 150 frames, which a fast host captures before the earliest signal): the street
+    clip's frames at 320x180, repeated, as MJPG."""
+    path = d / "long.avi"
+    if path.exists():
+        return path
+    cap = cv2.VideoCapture(str(CLIP))
+    clip = []
+    while True:
+        ok, frame = cap.read()
+        if not ok:
+            break
+        clip.append(cv2.resize(frame, (320, 180), interpolation=cv2.INTER_AREA))
+    cap.release()
+    out = cv2.VideoWriter(str(path), cv2.VideoWriter_fourcc(*"MJPG"), 30.0, (320, 180))
+    for i in range(frames):
+        out.write(clip[i % len(clip)])
+    out.release()
+    return path
+
+
 def _argv(name: str, d: Path, teacher_onnx: Path) -> list[str]:
     out = d / "out"
     return {
         "bench": ["bench", str(DEFAULT), "--teacher", str(TEACHER), "--content", str(PHOTO),
                   "--resolutions", "320x180", "--frames", "5", "-o", str(out)],
-        "capture": ["capture", "--source", str(CLIP), "--frames", "600", "-o", str(out)],
+        "capture": ["capture", "--source", str(_long_clip(d)), "--frames", "9000", "-o", str(out)],
         "live": ["live", "--source", str(CLIP), "--loop", "--headless", "--frames", "0",
                  "--output", str(d / "show.mp4")],
         "int8-probe": ["int8-probe"],
@@ -95,7 +117,7 @@ def _stop_at(name: str, sig: signal.Signals, delay: float, d: Path, teacher_onnx
         assert p.returncode in codes, where
         last = (err.strip().splitlines() or [""])[-1] if p.returncode else (out.strip().splitlines() or [""])[-1]
         assert any(x in last for x in says), where
-    left = [f for f in d.rglob("*") if f.is_file() and f.name not in ("tiny.toml", "train.toml")]
+    left = [f for f in d.rglob("*") if f.is_file() and f.name not in ("tiny.toml", "train.toml", "long.avi")]
     assert not [f for f in left if f.name.endswith(".tmp")], f"{where}\ntemp files left: {left}"
     for f in left:
         _complete(f)
