@@ -4,6 +4,8 @@ Int8-friendly by construction (docs/architecture.md): conv + bias + ReLU, zero p
 normalisation layers. Knobs:
 
 - width: multiplier on the teacher's (32, 64, 128) channels,
+- decoder_width: a further multiplier on the two upsampling stages' channels (the
+  decoder draws the finest strokes at the highest resolutions; 1.0 mirrors the encoder),
 - blocks: residual block count,
 - kernel_in / kernel_out: first and last kernel sizes (teacher: 9),
 - depthwise: depthwise-separable residual blocks,
@@ -33,6 +35,7 @@ UPSAMPLE_MODES = ("resize", "shuffle")
 @dataclass(frozen=True)
 class StudentKnobs:
     width: float = 0.5
+    decoder_width: float = 1.0
     blocks: int = 3
     kernel_in: int = 5
     kernel_out: int = 5
@@ -44,6 +47,8 @@ class StudentKnobs:
     def __post_init__(self) -> None:
         if not 0.05 <= self.width <= 2.0:
             raise InputError(f"width={self.width}: must be between 0.05 and 2.0")
+        if not 0.25 <= self.decoder_width <= 4.0:
+            raise InputError(f"decoder_width={self.decoder_width}: must be between 0.25 and 4.0")
         if not 0 <= self.blocks <= 16:
             raise InputError(f"blocks={self.blocks}: must be between 0 and 16")
         for name in ("kernel_in", "kernel_out"):
@@ -63,10 +68,11 @@ def _round_channels(c: float) -> int:
 
 def student_args(knobs: StudentKnobs) -> dict:
     c1, c2, c3 = (_round_channels(c * knobs.width) for c in (32, 64, 128))
+    u1, u2 = (_round_channels(c * knobs.width * knobs.decoder_width) for c in (64, 32))
     return {
         "channels": [c1, c2, c3],
         "hidden": [c3] * knobs.blocks,
-        "up_channels": [c2, c1],
+        "up_channels": [u1, u2],
         "kernel_in": knobs.kernel_in,
         "kernel_out": knobs.kernel_out,
         "depthwise": knobs.depthwise,

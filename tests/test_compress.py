@@ -349,6 +349,13 @@ def test_wider_student_starts_as_the_narrower_one(tmp_path):
     assert first[8:].abs().sum() > 0                             # new outputs: a random start
     assert torch.equal(first[:8], net.net[1].weight)             # old outputs: carried over
     assert not wide.net[3].weight[:, 8:].any()                   # from new inputs: zero
+    # a wider decoder alone (decoder_width) widens the same way: only the up-path grows
+    dec = init_from(str(tmp_path / "narrow.pt"), build("student", **knobs | {"decoder_width": 2.0}),
+                    "dec").eval()
+    assert dec.model_args["up_channels"] == [32, 16] and net.model_args["up_channels"] == [16, 8]
+    assert dec.model_args["channels"] == net.model_args["channels"]
+    with torch.no_grad():
+        assert torch.allclose(dec(x), net(x), atol=1e-6)
     with pytest.raises(CompressError, match="different architecture"):  # narrower: no
         init_from(str(tmp_path / "narrow.pt"), build("student", **knobs | {"width": 0.125}), "thin")
     shuffled = knobs | {"upsample": "shuffle"}  # a pixel-shuffle channel is four filters: no

@@ -74,6 +74,8 @@ def test_students_are_int8_friendly():
 def test_bad_knobs_are_named():
     with pytest.raises(ValueError, match="width"):
         StudentKnobs(width=5)
+    with pytest.raises(ValueError, match="decoder_width=0.1"):
+        StudentKnobs(decoder_width=0.1)
     with pytest.raises(ValueError, match="upsample"):
         StudentKnobs(upsample="bicubic")
     with pytest.raises(ValueError, match="unknown network family 'resnet'"):
