@@ -183,18 +183,88 @@ def camera_augment(img: np.ndarray, rng: np.random.Generator) -> np.ndarray:
     return out
 
 
-def sample_frame(cs: ContentSet, rng: np.random.Generator, width: int, height: int,
-                 camera: bool = False) -> np.ndarray:
-    """A camera-like frame: a random window of the frame's aspect (50-100% of the
-    largest that fits), resized to width x height, jittered (and, with `camera`, put
-    through camera_augment) -> (height, width, 3) uint8 BGR."""
-    img = cs.items[int(rng.integers(len(cs.items)))].image
+@dataclass(frozen=True)
+class FrameVariety:
+    """Scene variety beyond what a camera does, for distillation frames (the teacher labels
+    any input, so a student can be shown more kinds of scene than the sources hold). All off
+    by default; ranges are ours to choose (common practice for augmentation, no source)."""
+    rotate_deg: float = 0.0   # window turned by up to +-this many degrees (new edge directions)
+    hue_deg: float = 0.0      # hue turned by up to +-this many degrees (new colours)
+    mosaic: float = 0.0       # share of frames made of two sources, side by side or stacked
+    zoom_min: float = 0.5     # smallest window, as a share of the largest that fits
+
+    def __post_init__(self) -> None:
+        if not 0 <= self.rotate_deg <= 45:
+            raise InputError(f"variety.rotate_deg={self.rotate_deg}: must be between 0 and 45")
+        if not 0 <= self.hue_deg <= 180:
+            raise InputError(f"variety.hue_deg={self.hue_deg}: must be between 0 and 180")
+        if not 0 <= self.mosaic <= 1:
+            raise InputError(f"variety.mosaic={self.mosaic}: must be between 0 and 1")
+        if not 0.1 <= self.zoom_min <= 1:
+            raise InputError(f"variety.zoom_min={self.zoom_min}: must be between 0.1 and 1")
+
+    def describe(self) -> str:
+        """'' when all off (so caches built before variety existed keep their keys)."""
+        return "" if self == FrameVariety() else \
+            f"rot{self.rotate_deg}:hue{self.hue_deg}:mos{self.mosaic}:zoom{self.zoom_min}"
+
+
+def _window(img: np.ndarray, rng: np.random.Generator, width: int, height: int,
+            v: FrameVariety) -> np.ndarray:
+    """A random window of the frame's aspect, turned by up to v.rotate_deg, resampled to
+    width x height; the turned window lies wholly inside the image (no empty corners)."""
     h, w = img.shape[:2]
-    k = min(w / width, h / height) * rng.uniform(0.5, 1.0)
-    ww, wh = max(1, round(width * k)), max(1, round(height * k))
-    y = int(rng.integers(0, h - wh + 1))
-    x = int(rng.integers(0, w - ww + 1))
-    win = img[y:y + wh, x:x + ww]
-    interp = cv2.INTER_AREA if ww > width else cv2.INTER_LINEAR
-    frame = _jitter(cv2.resize(win, (width, height), interpolation=interp), rng)
+    zoom = rng.uniform(v.zoom_min, 1.0)
+    if not v.rotate_deg:
+        k = min(w / width, h / height) * zoom
+        ww, wh = max(1, round(width * k)), max(1, round(height * k))
+        y = int(rng.integers(0, h - wh + 1))
+        x = int(rng.integers(0, w - ww + 1))
+        win = img[y:y + wh, x:x + ww]
+        interp = cv2.INTER_AREA if ww > width else cv2.INTER_LINEAR
+        return cv2.resize(win, (width, height), interpolation=interp)
+    a = rng.uniform(-v.rotate_deg, v.rotate_deg)
+    c, s = abs(np.cos(np.radians(a))), abs(np.sin(np.radians(a)))
+    bw, bh = width * c + height * s, width * s + height * c   # the turned frame's bounding box
+    k = min(w / bw, h / bh) * zoom                            # source pixels per output pixel
+    img = cv2.resize(img, (max(1, int(w / k)), max(1, int(h / k))),
+                     interpolation=cv2.INTER_AREA if k > 1 else cv2.INTER_LINEAR)
+    h, w = img.shape[:2]
+    cx = rng.uniform(min(bw / 2, w / 2), max(w - bw / 2, w / 2))
+    cy = rng.uniform(min(bh / 2, h / 2), max(h - bh / 2, h / 2))
+    ca, sa = np.cos(np.radians(a)), np.sin(np.radians(a))
+    # output pixel (u, v) reads source R(a) (u - width/2, v - height/2) + (cx, cy)
+    m = np.array([[ca, -sa, cx - ca * width / 2 + sa * height / 2],
+                  [sa, ca, cy - sa * width / 2 - ca * height / 2]], np.float64)
+    return cv2.warpAffine(img, m, (width, height), flags=cv2.INTER_LINEAR | cv2.WARP_INVERSE_MAP,
+                          borderMode=cv2.BORDER_REFLECT)
+
+
+def _turn_hue(img: np.ndarray, deg: float) -> np.ndarray:
+    """BGR uint8 with its hue turned by `deg` degrees (OpenCV's 8-bit hue is degrees / 2)."""
+    hsv = cv2.cvtColor(img, cv2.COLOR_BGR2HSV)
+    hsv[:, :, 0] = ((hsv[:, :, 0].astype(np.int32) + int(round(deg / 2))) % 180).astype(np.uint8)
+    return cv2.cvtColor(hsv, cv2.COLOR_HSV2BGR)
+
+
+def sample_frame(cs: ContentSet, rng: np.random.Generator, width: int, height: int,
+                 camera: bool = False, variety: FrameVariety | None = None) -> np.ndarray:
+    """A camera-like frame: a random window of the frame's aspect (zoom_min-100% of the
+    largest that fits, 50% by default), resized to width x height, jittered (and, with
+    `camera`, put through camera_augment). `variety` may turn the window, turn its hue, or
+    make the frame of two sources split along a random line -> (height, width, 3) uint8 BGR."""
+    v = variety or FrameVariety()
+    img = cs.items[int(rng.integers(len(cs.items)))].image
+    frame = _window(img, rng, width, height, v)
+    if v.mosaic and rng.random() < v.mosaic:
+        other = _window(cs.items[int(rng.integers(len(cs.items)))].image, rng, width, height, v)
+        if rng.random() < 0.5:
+            x = 8 * int(rng.integers(-(-width // 32), 3 * width // 32 + 1))    # 25-75% across
+            frame[:, x:] = other[:, x:]
+        else:
+            y = 8 * int(rng.integers(-(-height // 32), 3 * height // 32 + 1))
+            frame[y:] = other[y:]
+    if v.hue_deg:
+        frame = _turn_hue(frame, rng.uniform(-v.hue_deg, v.hue_deg))
+    frame = _jitter(frame, rng)
     return np.ascontiguousarray(camera_augment(frame, rng) if camera else frame)

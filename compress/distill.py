@@ -35,8 +35,9 @@ from .ssim_loss import ms_ssim
 def cache_key(recipe: Recipe, data: ContentSet, teacher_sha: str) -> str:
     """What a teacher-target cache was built from: sampling settings, teacher, content."""
     inputs = hashlib.sha256(",".join([teacher_sha, *data.hashes()]).encode()).hexdigest()[:16]
+    variety = recipe.variety.describe()
     return (f"v4:{recipe.target_frame or 'crop'}:{recipe.crops_per_frame}:{recipe.seed}:"
-            f"{'camera' if recipe.camera_augment else 'plain'}:{inputs}")
+            f"{'camera' if recipe.camera_augment else 'plain'}:{inputs}" + (f":{variety}" if variety else ""))
 
 
 def build_cache(teacher: Model, data: ContentSet, recipe: Recipe, path: Path,
@@ -94,7 +95,7 @@ def _frames(data: ContentSet, recipe: Recipe, count: int, w: int, h: int):
     c, per = recipe.crop, recipe.crops_per_frame
     for f in range(count):
         rng = np.random.default_rng([recipe.seed, 7919, f])
-        frame = sample_frame(data, rng, w, h, recipe.camera_augment)  # (h, w, 3) BGR
+        frame = sample_frame(data, rng, w, h, recipe.camera_augment, recipe.variety)  # (h, w, 3) BGR
         offsets = [(8 * int(rng.integers(0, (h - c) // 8 + 1)), 8 * int(rng.integers(0, (w - c) // 8 + 1)))
                    for _ in range(per)]
         yield frame, offsets

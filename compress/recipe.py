@@ -9,6 +9,7 @@ from limner.bench.int8 import Int8Spec
 from limner.runtime.errors import InputError
 
 from . import registry
+from .content import FrameVariety
 
 
 @dataclass
@@ -111,6 +112,7 @@ class Recipe:
     target_frame: str = "640x360"  # teacher styles whole frames of this size ("" = each crop alone)
     crops_per_frame: int = 8
     camera_augment: bool = True    # frames get exposure, white balance, blur, noise, JPEG (content.py)
+    variety: FrameVariety = field(default_factory=FrameVariety)  # [variety]: turned, recoloured, mixed scenes
     seed: int = 0
     threads: int = 0
     device: str = "cpu"            # where distillation trains: cpu, cuda (or cuda:N), auto
