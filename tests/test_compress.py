@@ -283,7 +283,7 @@ def test_rerun_skips_finished_candidates(tiny_run, teacher_onnx):
 
 def test_student_init_checkpoint_must_match_knobs(tmp_path):
     from limner.compress import checkpoint as ck
-    from limner.compress.pipeline import CompressError, init_from
+    from limner.compress.warm_start import CompressError, init_from
 
     knobs = asdict(PRESETS["s-tiny"])
     torch.manual_seed(0)
@@ -329,7 +329,7 @@ def test_wider_student_starts_as_the_narrower_one(tmp_path):
     consumer weights): a student at a larger `width` started from a narrower checkpoint
     gives the same output on any input, and its new channels are live (random producers)."""
     from limner.compress import checkpoint as ck
-    from limner.compress.pipeline import CompressError, init_from
+    from limner.compress.warm_start import CompressError, init_from
 
     knobs = {"width": 0.25, "blocks": 2, "kernel_in": 3, "kernel_out": 3, "downscale": 2,
              "upsample": "resize", "context": True}

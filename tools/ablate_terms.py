@@ -33,7 +33,7 @@ from limner.bench.metrics import ms_ssim
 from limner.runtime.images import cover_crop, list_images, read_image
 from limner.compress.distill import distill
 from limner.compress.lossnet import build_loss_net
-from limner.compress.pipeline import init_from
+from limner.compress.warm_start import init_from
 from limner.compress.recipe import Recipe
 from limner.compress.registry import build
 from limner.runtime import config as cfgmod
