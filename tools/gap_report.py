@@ -14,17 +14,11 @@
 """
 from __future__ import annotations
 
-import argparse
-import json
-from pathlib import Path
-
 import cv2
 import numpy as np
 
+from limner.bench import compare_inputs
 from limner.bench.metrics import _channels, _ssim_maps, ms_ssim
-from limner.bench.run import display_names
-from limner.runtime.images import cover_crop, list_images, read_image
-from limner.runtime.model import load_model
 
 BANDS = (0, 8, 16, 32, 64)      # px from the frame's edge (the SSIM map starts 5 px in)
 SIGMAS = (2, 4, 8)
@@ -80,20 +74,8 @@ def report(teacher, model, photos: list[np.ndarray]) -> dict:
 
 
 def main() -> None:
-    ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
-    ap.add_argument("teacher", type=Path)
-    ap.add_argument("models", nargs="+", type=Path)
-    ap.add_argument("--content", nargs="+", required=True, help="held-out photos or folders")
-    ap.add_argument("--resolution", default="640x360")
-    ap.add_argument("--json", type=Path)
-    a = ap.parse_args()
-    w, h = (int(v) for v in a.resolution.lower().split("x"))
-    photos = [cover_crop(read_image(p), w, h) for p in list_images(a.content)]
-    if not photos:
-        raise SystemExit(f"no photos in {a.content}")
-    teacher = load_model(a.teacher)
-    models = [load_model(p) for p in a.models]
-    rows = {name: report(teacher, m, photos) for m, name in zip(models, display_names(models))}
+    c = compare_inputs.parse(__doc__)
+    rows = {name: report(c.teacher, m, c.photos) for name, m in c.models}
     for name, r in rows.items():
         print(f"{name}: MS-SSIM whole frame {r['ms_ssim_whole_frame']}, quadrants alone "
               f"{r['ms_ssim_quadrants_alone']} (context effect on the teacher "
@@ -102,10 +84,7 @@ def main() -> None:
               ", ".join(f"{k} {v}" for k, v in r["ssim_by_edge_distance"].items()))
         print("  blurred outputs: " + ", ".join(f"{k} MAE {v['mae']} corr {v['corr_rgb']}"
                                                 for k, v in r["lowpass"].items()))
-    if a.json:
-        a.json.parent.mkdir(parents=True, exist_ok=True)
-        a.json.write_text(json.dumps({"teacher": str(a.teacher), "photos": len(photos),
-                                      "resolution": a.resolution, "rows": rows}, indent=2) + "\n")
+    c.write_json(rows)
 
 
 if __name__ == "__main__":

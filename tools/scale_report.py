@@ -11,17 +11,11 @@ is stroke phase; low coarse scales is the regional colour and light layout.
 """
 from __future__ import annotations
 
-import argparse
-import json
-from pathlib import Path
-
 import cv2
 import numpy as np
 
+from limner.bench import compare_inputs
 from limner.bench.metrics import MS_WEIGHTS, ms_ssim_scales
-from limner.bench.run import display_names
-from limner.runtime.images import cover_crop, list_images, read_image
-from limner.runtime.model import load_model
 
 
 def _resample(img: np.ndarray, k: int) -> np.ndarray:
@@ -45,29 +39,15 @@ def _row(pairs: list[tuple[np.ndarray, np.ndarray]]) -> dict:
 
 
 def main() -> None:
-    ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
-    ap.add_argument("teacher", type=Path)
-    ap.add_argument("models", nargs="+", type=Path)
-    ap.add_argument("--content", nargs="+", required=True, help="held-out photos or folders")
-    ap.add_argument("--resolution", default="640x360")
-    ap.add_argument("--json", type=Path)
-    a = ap.parse_args()
-    w, h = (int(v) for v in a.resolution.lower().split("x"))
-    photos = [cover_crop(read_image(p), w, h) for p in list_images(a.content)]
-    if not photos:
-        raise SystemExit(f"no photos in {a.content}")
-    teacher = load_model(a.teacher)
-    targets = [teacher.run(p) for p in photos]
+    c = compare_inputs.parse(__doc__)
+    targets = [c.teacher.run(p) for p in c.photos]
     rows = {name: _row([(f(t), t) for t in targets]) for name, f in YARDSTICKS.items()}
-    models = [load_model(mp) for mp in a.models]
-    for m, name in zip(models, display_names(models)):  # FOLDER/NAME where two share a name
-        rows[name] = _row([(m.run(p), t) for p, t in zip(photos, targets)])
+    for name, m in c.models:
+        rows[name] = _row([(m.run(p), t) for p, t in zip(c.photos, targets)])
     print(f"{'':34s} {'MS-SSIM':>8s}   scale 1 (finest) .. 5 (coarsest)")
     for name, r in rows.items():
         print(f"{name:34s} {r['ms_ssim']:8.3f}   " + "  ".join(f"{v:.3f}" for v in r["scales"]))
-    if a.json:
-        a.json.write_text(json.dumps({"teacher": str(a.teacher), "photos": len(photos),
-                                      "resolution": a.resolution, "rows": rows}, indent=2))
+    c.write_json(rows)
 
 
 if __name__ == "__main__":
