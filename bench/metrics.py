@@ -40,11 +40,15 @@ def _channels(img: np.ndarray) -> list[np.ndarray]:
     return [img] if img.ndim == 2 else [img[:, :, c] for c in range(img.shape[2])]
 
 
+def ssim_map(a: np.ndarray, b: np.ndarray, data_range: float = 255.0) -> np.ndarray:
+    """Per-pixel SSIM over the valid region (5 px in from each edge), averaged over channels."""
+    _check(a, b)
+    return np.mean([_ssim_maps(x, y, data_range)[0] for x, y in zip(_channels(a), _channels(b))], axis=0)
+
+
 def ssim(a: np.ndarray, b: np.ndarray, data_range: float = 255.0) -> float:
     """Mean SSIM over the valid region, averaged over channels."""
-    _check(a, b)
-    return float(np.mean([_ssim_maps(x, y, data_range)[0].mean()
-                          for x, y in zip(_channels(a), _channels(b))]))
+    return float(ssim_map(a, b, data_range).mean())
 
 
 def _down2(x: np.ndarray) -> np.ndarray:

@@ -194,14 +194,10 @@ class FrameVariety:
     zoom_min: float = 0.5     # smallest window, as a share of the largest that fits
 
     def __post_init__(self) -> None:
-        if not 0 <= self.rotate_deg <= 45:
-            raise InputError(f"variety.rotate_deg={self.rotate_deg}: must be between 0 and 45")
-        if not 0 <= self.hue_deg <= 180:
-            raise InputError(f"variety.hue_deg={self.hue_deg}: must be between 0 and 180")
-        if not 0 <= self.mosaic <= 1:
-            raise InputError(f"variety.mosaic={self.mosaic}: must be between 0 and 1")
-        if not 0.1 <= self.zoom_min <= 1:
-            raise InputError(f"variety.zoom_min={self.zoom_min}: must be between 0.1 and 1")
+        for name, lo, hi in (("rotate_deg", 0, 45), ("hue_deg", 0, 180), ("mosaic", 0, 1),
+                             ("zoom_min", 0.1, 1)):
+            if not lo <= getattr(self, name) <= hi:
+                raise InputError(f"variety.{name}={getattr(self, name)}: must be between {lo} and {hi}")
 
     def describe(self) -> str:
         """'' when all off (so caches built before variety existed keep their keys)."""
@@ -223,8 +219,9 @@ def _window(img: np.ndarray, rng: np.random.Generator, width: int, height: int,
         win = img[y:y + wh, x:x + ww]
         interp = cv2.INTER_AREA if ww > width else cv2.INTER_LINEAR
         return cv2.resize(win, (width, height), interpolation=interp)
-    a = rng.uniform(-v.rotate_deg, v.rotate_deg)
-    c, s = abs(np.cos(np.radians(a))), abs(np.sin(np.radians(a)))
+    a = np.radians(rng.uniform(-v.rotate_deg, v.rotate_deg))
+    ca, sa = np.cos(a), np.sin(a)
+    c, s = abs(ca), abs(sa)
     bw, bh = width * c + height * s, width * s + height * c   # the turned frame's bounding box
     k = min(w / bw, h / bh) * zoom                            # source pixels per output pixel
     img = cv2.resize(img, (max(1, int(w / k)), max(1, int(h / k))),
@@ -232,7 +229,6 @@ def _window(img: np.ndarray, rng: np.random.Generator, width: int, height: int,
     h, w = img.shape[:2]
     cx = rng.uniform(min(bw / 2, w / 2), max(w - bw / 2, w / 2))
     cy = rng.uniform(min(bh / 2, h / 2), max(h - bh / 2, h / 2))
-    ca, sa = np.cos(np.radians(a)), np.sin(np.radians(a))
     # output pixel (u, v) reads source R(a) (u - width/2, v - height/2) + (cx, cy)
     m = np.array([[ca, -sa, cx - ca * width / 2 + sa * height / 2],
                   [sa, ca, cy - sa * width / 2 - ca * height / 2]], np.float64)

@@ -18,14 +18,10 @@ import cv2
 import numpy as np
 
 from limner.bench import compare_inputs
-from limner.bench.metrics import _channels, _ssim_maps, ms_ssim
+from limner.bench.metrics import ms_ssim, ssim_map
 
 BANDS = (0, 8, 16, 32, 64)      # px from the frame's edge (the SSIM map starts 5 px in)
 SIGMAS = (2, 4, 8)
-
-
-def _ssim_map(a: np.ndarray, b: np.ndarray) -> np.ndarray:
-    return np.mean([_ssim_maps(x, y, 255.0)[0] for x, y in zip(_channels(a), _channels(b))], axis=0)
 
 
 def _edge_bands(maps: list[np.ndarray]) -> list[float]:
@@ -48,7 +44,7 @@ def report(teacher, model, photos: list[np.ndarray]) -> dict:
     for p in photos:
         t, s = teacher.run(p), model.run(p)
         full.append(ms_ssim(s, t))
-        maps.append(_ssim_map(s, t))
+        maps.append(ssim_map(s, t))
         for sig in SIGMAS:
             tl, sl = (cv2.GaussianBlur(x.astype(np.float32), (0, 0), sig) for x in (t, s))
             low[sig][0].append(float(np.abs(tl - sl).mean()))
