@@ -8,6 +8,7 @@ the sha256 of its source file so later stages can refuse overlap between sets.
 from __future__ import annotations
 
 import hashlib
+import re
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -43,6 +44,28 @@ class ContentSet:
     def sources(self) -> list[str]:
         return sorted({i.source.split("#")[0] for i in self.items})
 
+    def groups(self) -> list[list[int]]:
+        """Item indices by source (`source_of`), in first-seen order."""
+        out: dict[str, list[int]] = {}
+        for k, item in enumerate(self.items):
+            out.setdefault(source_of(item.source), []).append(k)
+        return list(out.values())
+
+
+_NUMBERED = re.compile(r"^(.*)-\d+$")
+
+
+def source_of(source: str) -> str:
+    """The source an item was taken from: a video's frames (`clip.mp4#3`) share their file,
+    and image files named STEM-N (N digits) in one folder share STEM, the way extracted
+    frames and photo series are named (tree-0 ... tree-5 are frames of one video); anything
+    else is its own source."""
+    path = source.split("#")[0]
+    if path.startswith("scenes:"):
+        return path
+    p = Path(path)
+    m = _NUMBERED.match(p.stem)
+    return str(p.with_name(m.group(1))) if m else path
 
 
 def _video_frames(path: Path, frames_per_video: int) -> list[np.ndarray]:
@@ -192,6 +215,7 @@ class FrameVariety:
     hue_deg: float = 0.0      # hue turned by up to +-this many degrees (new colours)
     mosaic: float = 0.0       # share of frames made of two sources, side by side or stacked
     zoom_min: float = 0.5     # smallest window, as a share of the largest that fits
+    by_source: bool = False   # draw a source first, then one of its items (ContentSet.groups)
 
     def __post_init__(self) -> None:
         for name, lo, hi in (("rotate_deg", 0, 45), ("hue_deg", 0, 180), ("mosaic", 0, 1),
@@ -202,7 +226,8 @@ class FrameVariety:
     def describe(self) -> str:
         """'' when all off (so caches built before variety existed keep their keys)."""
         return "" if self == FrameVariety() else \
-            f"rot{self.rotate_deg}:hue{self.hue_deg}:mos{self.mosaic}:zoom{self.zoom_min}"
+            f"rot{self.rotate_deg}:hue{self.hue_deg}:mos{self.mosaic}:zoom{self.zoom_min}" + \
+            (":by-source" if self.by_source else "")
 
 
 def _window(img: np.ndarray, rng: np.random.Generator, width: int, height: int,
@@ -243,17 +268,26 @@ def _turn_hue(img: np.ndarray, deg: float) -> np.ndarray:
     return cv2.cvtColor(hsv, cv2.COLOR_HSV2BGR)
 
 
+def _draw(cs: ContentSet, rng: np.random.Generator, by_source: bool) -> np.ndarray:
+    """One item's image: uniform over items, or over sources and then their items."""
+    if not by_source:
+        return cs.items[int(rng.integers(len(cs.items)))].image
+    groups = cs.groups()
+    g = groups[int(rng.integers(len(groups)))]
+    return cs.items[g[int(rng.integers(len(g)))]].image
+
+
 def sample_frame(cs: ContentSet, rng: np.random.Generator, width: int, height: int,
                  camera: bool = False, variety: FrameVariety | None = None) -> np.ndarray:
     """A camera-like frame: a random window of the frame's aspect (zoom_min-100% of the
     largest that fits, 50% by default), resized to width x height, jittered (and, with
     `camera`, put through camera_augment). `variety` may turn the window, turn its hue, or
-    make the frame of two sources split along a random line -> (height, width, 3) uint8 BGR."""
+    make the frame of two sources split along a random line, and draw by source rather than
+    by item -> (height, width, 3) uint8 BGR."""
     v = variety or FrameVariety()
-    img = cs.items[int(rng.integers(len(cs.items)))].image
-    frame = _window(img, rng, width, height, v)
+    frame = _window(_draw(cs, rng, v.by_source), rng, width, height, v)
     if v.mosaic and rng.random() < v.mosaic:
-        other = _window(cs.items[int(rng.integers(len(cs.items)))].image, rng, width, height, v)
+        other = _window(_draw(cs, rng, v.by_source), rng, width, height, v)
         if rng.random() < 0.5:
             x = 8 * int(rng.integers(-(-width // 32), 3 * width // 32 + 1))    # 25-75% across
             frame[:, x:] = other[:, x:]

@@ -93,3 +93,28 @@ def test_variety_changes_the_cache_key_and_bad_values_are_named():
         FrameVariety(mosaic=1.5)
     with pytest.raises(ValueError, match="variety.rotate_deg=90"):
         FrameVariety(rotate_deg=90)
+
+
+def test_drawing_by_source_gives_each_source_an_equal_share():
+    """Six frames of one clip and two single photos: drawn by item the clip fills 6/8 of the
+    frames, drawn by source 1/3. 600 draws: a binomial share's standard deviation is at most
+    0.02, so +-0.07 is over three of them (common practice, no source)."""
+    from limner.compress.content import source_of
+
+    colours = [(200, 0, 0)] * 6 + [(0, 200, 0), (0, 0, 200)]
+    names = [f"clips/tree-{k}.jpg" for k in range(6)] + ["photos/apple.jpg", "photos/dog.jpg"]
+    data = ContentSet([ContentItem(_flat(c, 64, 96), n, f"sha{i}")
+                       for i, (c, n) in enumerate(zip(colours, names))], [])
+    assert [len(g) for g in data.groups()] == [6, 1, 1]
+    assert source_of("clips/tree-3.jpg") == "clips/tree" and source_of("v.mp4#12") == "v.mp4"
+    assert source_of("photos/aero1.jpg") == "photos/aero1.jpg"    # no hyphen: its own source
+
+    def clip_share(v: FrameVariety) -> float:
+        frames = [sample_frame(data, np.random.default_rng(k), 32, 24, variety=v) for k in range(600)]
+        return float(np.mean([f[:, :, 0].mean() > f[:, :, 1:].mean() + 50 for f in frames]))
+
+    assert abs(clip_share(FrameVariety()) - 6 / 8) < 0.07
+    assert abs(clip_share(FrameVariety(by_source=True)) - 1 / 3) < 0.07
+    from limner.compress.distill import cache_key
+    from limner.compress.recipe import Recipe
+    assert cache_key(Recipe(variety=FrameVariety(by_source=True)), data, "t").endswith("by-source")
