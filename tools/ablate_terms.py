@@ -81,13 +81,18 @@ def main() -> None:
     ap.add_argument("--teacher", required=True)
     ap.add_argument("--content", nargs="+", required=True, help="held-out photos or folders of them")
     ap.add_argument("--steps", type=int, default=300)
-    ap.add_argument("--variants", nargs="+", default=["all"] + [f"no:{t}" for t in TERMS],
-                    help="'all', 'no:TERM' (all but TERM), 'only:TERM' (TERM alone) or "
-                         "'with:NAME=W,...' (the recipe's [loss] with those weights set)")
+    ap.add_argument("--lr", type=float, default=None, help="peak learning rate (default: the student's in the recipe)")
+    ap.add_argument("--variants", nargs="+", default=["start", "all"] + [f"no:{t}" for t in TERMS],
+                    help="'start' (the --init student, untrained further), 'all', 'no:TERM' (all but "
+                         "TERM), 'only:TERM' (TERM alone) or 'with:NAME=W,...' (the recipe's [loss] "
+                         "with those weights set)")
     ap.add_argument("-o", "--out", type=Path, required=True)
     a = ap.parse_args()
 
     recipe = cfgmod.load(Recipe, a.recipe)
+    for variant in a.variants:  # a misspelt variant fails now, not after the others have trained
+        if variant != "start":
+            _weights(variant, recipe.loss)
     spec = next((s for s in recipe.student if s.name == a.student), None)
     if spec is None:
         raise SystemExit(f"--student {a.student}: not in {a.recipe}")
@@ -99,13 +104,17 @@ def main() -> None:
     targets = {k: teacher.run(v) for k, v in photos.items()}
     a.out.mkdir(parents=True, exist_ok=True)
     rows = []
+    lr = spec.lr if a.lr is None else a.lr
     for variant in a.variants:
-        weights = _weights(variant, recipe.loss)
-        r = dataclasses.replace(recipe, loss=weights)
         net = init_from(a.init, build("student", **spec.knobs), spec.name)
-        with tempfile.TemporaryDirectory() as work:
-            net, info = distill(net, cache, r, a.steps, spec.lr, lossnet, Path(work), f"{variant:>20}", {})
-        row = {"variant": variant, "steps": a.steps, "seconds": round(info["seconds"], 1)}
+        steps, seconds = 0, 0.0
+        if variant != "start":
+            r = dataclasses.replace(recipe, loss=_weights(variant, recipe.loss))
+            with tempfile.TemporaryDirectory() as work:
+                net, info = distill(net, cache, r, a.steps, lr, lossnet, Path(work), f"{variant:>20}", {})
+            steps, seconds = a.steps, info["seconds"]
+        net.eval()
+        row = {"variant": variant, "steps": steps, "lr": lr, "seconds": round(seconds, 1)}
         for name, img in photos.items():
             out = stylise(net, img)
             row[f"ms_ssim_{name}"] = round(ms_ssim(out, targets[name]), 4)
