@@ -12,7 +12,9 @@ normalisation layers. Knobs:
 - downscale: internal space-to-depth factor (1 = none, 2 = work at half size),
 - upsample: "resize" (nearest resize + 3x3 conv) or "shuffle" (conv + pixel shuffle),
 - context: frame-level context (layers.FrameFiLM) after the encoder, so the student can
-  follow the teacher's whole-frame normalisation.
+  follow the teacher's whole-frame normalisation,
+- context_blocks: with context, one more frame-context block after every residual block
+  (the teacher normalises by whole-frame statistics in every block, not only once).
 
 `Student` itself takes explicit channel counts, so a pruned network (any channel
 counts) is rebuilt from its checkpoint without guessing; `student_args` turns the
@@ -43,6 +45,7 @@ class StudentKnobs:
     downscale: int = 1
     upsample: str = "resize"
     context: bool = False
+    context_blocks: bool = False
 
     def __post_init__(self) -> None:
         if not 0.05 <= self.width <= 2.0:
@@ -59,6 +62,8 @@ class StudentKnobs:
             raise InputError(f"downscale={self.downscale}: must be 1, 2 or 4")
         if self.upsample not in UPSAMPLE_MODES:
             raise InputError(f"upsample={self.upsample!r}: must be one of {UPSAMPLE_MODES}")
+        if self.context_blocks and not self.context:
+            raise InputError("context_blocks=true needs context=true")
 
 
 def _round_channels(c: float) -> int:
@@ -79,6 +84,7 @@ def student_args(knobs: StudentKnobs) -> dict:
         "downscale": knobs.downscale,
         "upsample": knobs.upsample,
         "context": max(8, c3 // 2) if knobs.context else 0,
+        "context_blocks": knobs.context_blocks,
         "knobs": asdict(knobs),
     }
 
@@ -106,7 +112,7 @@ class Student(nn.Module):
     def __init__(self, channels: list[int], hidden: list[int], up_channels: list[int],
                  kernel_in: int = 5, kernel_out: int = 5, depthwise: bool = False,
                  downscale: int = 1, upsample: str = "resize", context: int = 0,
-                 knobs: dict | None = None) -> None:
+                 context_blocks: bool = False, knobs: dict | None = None) -> None:
         super().__init__()
         c1, c2, c3 = channels
         u1, u2 = up_channels
@@ -114,7 +120,8 @@ class Student(nn.Module):
                            "up_channels": list(up_channels), "kernel_in": kernel_in,
                            "kernel_out": kernel_out, "depthwise": depthwise,
                            "downscale": downscale, "upsample": upsample,
-                           "context": context, "knobs": dict(knobs or {})}
+                           "context": context, "context_blocks": context_blocks,
+                           "knobs": dict(knobs or {})}
         self.size_multiple = 4 * downscale
         d2 = downscale * downscale
         layers: list[nn.Module] = []
@@ -126,7 +133,11 @@ class Student(nn.Module):
         self.context_at = len(layers) if context else -1
         if context:
             layers.append(FrameFiLM(c3, context))
-        layers += [_block(c3, h, depthwise) for h in hidden]
+        for h in hidden:
+            layers.append(_block(c3, h, depthwise))
+            if context and context_blocks:
+                layers.append(FrameFiLM(c3, context))
+        self.context_points = [i for i, m in enumerate(layers) if isinstance(m, FrameFiLM)]
         layers += _up(c3, u1, upsample) + _up(u1, u2, upsample)
         layers.append(conv(u2, 3 * d2, kernel_out))
         if downscale > 1:
@@ -134,25 +145,35 @@ class Student(nn.Module):
         layers.append(Squash())
         self.net = nn.Sequential(*layers)
 
-    def frame_stats(self, frame: torch.Tensor) -> torch.Tensor:
-        """Pooled encoder features of whole frames, without gradient (training only).
-        frame: (N, 3, Hf, Wf) RGB in [0, 1] -> (N, c3, 1, 1)"""
+    def frame_stats(self, frame: torch.Tensor) -> tuple[torch.Tensor, ...]:
+        """What each frame-context block pools over whole frames, without gradient
+        (training only): the frames run up to the last such block, each block modulated
+        by its own pooled input, as on a whole frame at run time.
+        frame: (N, 3, Hf, Wf) RGB in [0, 1] -> one (N, c3, 1, 1) per context block"""
+        out = []
         with torch.no_grad():
-            return self.net[:self.context_at](frame).mean(dim=(2, 3), keepdim=True)
+            h, start = frame, 0
+            for k in self.context_points:
+                h = self.net[start:k](h)                # (N, c3, Hf/s, Wf/s)
+                out.append(h.mean(dim=(2, 3), keepdim=True))
+                h, start = self.net[k](h, out[-1]), k + 1
+        return tuple(out)
 
     def forward(self, x: torch.Tensor, frame: torch.Tensor | None = None,
-                stats: torch.Tensor | None = None) -> torch.Tensor:
+                stats: tuple[torch.Tensor, ...] | None = None) -> torch.Tensor:
         # x: (N, 3, H, W) RGB in [0, 1], H and W multiples of size_multiple
         # frame: (N, 3, Hf, Wf), the whole frame x was cropped from, or stats: its
         #   frame_stats (training only; by default a context student pools x itself)
         #   -> (N, 3, H, W) RGB in [0, 1]
-        k = self.context_at
-        if k < 0:
+        if not self.context_points or (stats is None and frame is None):
             return self.net(x)
-        if stats is None and frame is not None:
+        if stats is None:
             stats = self.frame_stats(frame)
-        h = self.net[:k](x)                             # (N, c3, H/s, W/s)
-        return self.net[k + 1:](self.net[k](h, stats))
+        h, start = x, 0
+        for k, s in zip(self.context_points, stats, strict=True):
+            h = self.net[k](self.net[start:k](h), s)    # (N, c3, H/s, W/s)
+            start = k + 1
+        return self.net[start:](h)
 
 
 # Named student shapes from slow-and-faithful to fast-and-rough: the tests build, export,
@@ -212,4 +233,4 @@ def student_shrunk(net: Student, n: dict[str, int]) -> Student:
     return Student(channels=[n["c1"], n["c2"], n["c3"]], hidden=hidden, up_channels=[n["u1"], n["u2"]],
                    kernel_in=a["kernel_in"], kernel_out=a["kernel_out"], depthwise=a["depthwise"],
                    downscale=a["downscale"], upsample=a["upsample"], context=a.get("context", 0),
-                   knobs=a["knobs"])
+                   context_blocks=a.get("context_blocks", False), knobs=a["knobs"])

@@ -8,7 +8,7 @@ import torch
 
 from . import checkpoint as ckptmod
 from .errors import CompressError
-from .layers import Residual
+from .layers import FrameFiLM, Residual
 
 
 def _widen(old: torch.Tensor, fresh: torch.Tensor) -> torch.Tensor:
@@ -36,14 +36,15 @@ def init_from(path: str, fresh: torch.nn.Module, name: str) -> torch.nn.Module:
     from new input channels start at zero, so the wider student computes exactly what the
     narrower one did (function-preserving widening, as in Net2Net, Chen et al. 2016, with
     zero-initialised consumers instead of copied units) and training uses the new
-    channels from there."""
+    channels from there. Frame-context blocks the old student lacks (after the encoder, or
+    after each residual block with `context_blocks`) start as the identity."""
     try:
         old = ckptmod.load(Path(path)).model()
     except ckptmod.CheckpointError as e:
         raise CompressError(f"student {name}: init: {e}") from None
     widths = ("channels", "up_channels", "hidden", "context")
     def shape(args: dict) -> dict:
-        return {k: v for k, v in args.items() if k not in ("knobs", "downscale") + widths}
+        return {k: v for k, v in args.items() if k not in ("knobs", "downscale", "context_blocks") + widths}
     oa, fa = old.model_args, fresh.model_args
     old_hidden, new_hidden = list(oa["hidden"]), list(fa["hidden"])
     fits = (len(oa["channels"]) == len(fa["channels"]) and len(old_hidden) <= len(new_hidden)
@@ -56,9 +57,10 @@ def init_from(path: str, fresh: torch.nn.Module, name: str) -> torch.nn.Module:
     if shape(oa) != shape(fa) or not fits or (widened and fa["upsample"] != "resize"):
         raise CompressError(f"student {name}: init={path} holds a different architecture "
                             f"({oa.get('knobs')}) than the recipe's knobs")
-    # the context block shifts the indices of the layers after it: match tensors in order
-    film = (f"net.{fresh.context_at}." if getattr(fresh, "context_at", -1) >= 0
-            and not old.model_args.get("context") else None)
+    # context blocks shift the indices of the layers after them: match tensors in order,
+    # skipping the fresh student's context blocks that the old one lacks
+    old_films = _film_places(old)
+    films = [i for i, after in _film_places(fresh).items() if after not in old_films.values()]
     # extra residual blocks (the last ones) keep their initialisation, made the identity
     blocks = [i for i, m in enumerate(fresh.net) if isinstance(m, Residual)]
     extra = blocks[len(old_hidden):]
@@ -67,7 +69,7 @@ def init_from(path: str, fresh: torch.nn.Module, name: str) -> torch.nn.Module:
         with torch.no_grad():
             last.weight.zero_()
             last.bias.zero_()
-    skip = tuple(f"net.{i}." for i in extra) + ((film,) if film else ())
+    skip = tuple(f"net.{i}." for i in extra + films)
     fresh_sd = fresh.state_dict()
     targets = [k for k in fresh_sd if not k.startswith(skip)]
     old_sd = old.state_dict()
@@ -88,3 +90,13 @@ def init_from(path: str, fresh: torch.nn.Module, name: str) -> torch.nn.Module:
             raise CompressError(f"student {name}: init={path}: weights do not fit the recipe's knobs")
     fresh.load_state_dict(fresh_sd)
     return fresh.train()
+
+
+def _film_places(net: torch.nn.Module) -> dict[int, int]:
+    """Each frame-context block's layer index -> how many residual blocks precede it."""
+    out, blocks = {}, 0
+    for i, m in enumerate(getattr(net, "net", [])):
+        blocks += isinstance(m, Residual)
+        if isinstance(m, FrameFiLM):
+            out[i] = blocks
+    return out

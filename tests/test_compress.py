@@ -61,7 +61,8 @@ models = ["a", "a-p30"]
 
 
 PRUNE_SHAPES = {k: asdict(v) for k, v in PRESETS.items()} | {
-    "s-half-context": asdict(PRESETS["s-half"]) | {"context": True}}
+    "s-half-context": asdict(PRESETS["s-half"]) | {"context": True},
+    "s-half-context-blocks": asdict(PRESETS["s-half"]) | {"context": True, "context_blocks": True}}
 
 
 @pytest.mark.parametrize("name", list(PRUNE_SHAPES))
@@ -297,6 +298,13 @@ def test_student_init_checkpoint_must_match_knobs(tmp_path):
     x = torch.rand(1, 3, 64, 96)
     with torch.no_grad():
         assert torch.allclose(ctx(x), net.eval()(x), atol=1e-6)
+    # and one with a context block after every residual block from the one with only the first
+    ck.save(ck.from_model(ctx, {"name": "tiny-ctx"}), tmp_path / "tiny-ctx.pt")
+    blocks = init_from(str(tmp_path / "tiny-ctx.pt"),
+                       build("student", **knobs | {"context": True, "context_blocks": True}), "tiny-cb").eval()
+    assert len(blocks.context_points) == 1 + knobs["blocks"]
+    with torch.no_grad():
+        assert torch.equal(blocks(x), ctx(x))
     # another downscale: the body carries over, the first and last convs start fresh
     other = 4 if knobs["downscale"] != 4 else 2
     fresh = build("student", **knobs | {"downscale": other})
@@ -571,3 +579,26 @@ def test_a_family_registered_once_is_built_configured_and_pruned_by_name(monkeyp
     small = prune(net, 0.5)
     assert registry.family_of(small) == "student"
     assert abs(1 - conv_weight_count(small) / conv_weight_count(net) - 0.5) <= 0.05
+
+
+def test_frame_stats_are_what_each_context_block_pools_on_the_whole_frame():
+    """Training hands a crop its whole frame's statistics (Student.frame_stats); run on the
+    whole frame itself with those statistics, the student must give exactly what it gives
+    pooling for itself, as the exported model does at run time, at every context block."""
+    torch.manual_seed(0)
+    net = build("student", **asdict(PRESETS["s-half"]) | {"context": True, "context_blocks": True}).eval()
+    for m in net.modules():  # context blocks start as the identity: give them an effect
+        if isinstance(m, FrameFiLM):
+            for c in (m.gamma, m.beta):
+                c.weight.data.normal_(0, 0.5)
+    frame = torch.rand(2, 3, 64, 96)
+    frame[:, :, :, 48:] += 2.0               # a bright right half: frame and crop statistics differ
+    stats = net.frame_stats(frame)
+    assert len(stats) == len(net.context_points) == 1 + len(net.model_args["hidden"])
+    with torch.no_grad():
+        assert torch.allclose(net(frame, stats=stats), net(frame), atol=1e-6)
+        crop = frame[:, :, 16:48, 0:32]
+        # a crop with its frame's statistics differs from the crop pooling for itself
+        assert (net(crop, frame=frame) - net(crop)).abs().max() > 1e-3
+        with pytest.raises(ValueError):  # one statistic per context block, no fewer
+            net(crop, stats=stats[:1])

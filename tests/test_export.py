@@ -17,8 +17,9 @@ from limner.compress.students import PRESETS
 from limner.runtime.model import load_model
 
 SHAPES = ([("teacher", {})] + [("student", asdict(k)) for k in PRESETS.values()]
-          + [("student", asdict(PRESETS["s-half"]) | {"context": True})])
-IDS = ["teacher"] + list(PRESETS) + ["s-half-context"]
+          + [("student", asdict(PRESETS["s-half"]) | {"context": True}),
+             ("student", asdict(PRESETS["s-half"]) | {"context": True, "context_blocks": True})])
+IDS = ["teacher"] + list(PRESETS) + ["s-half-context", "s-half-context-blocks"]
 
 
 def _torch_reference(net: torch.nn.Module, bgr: np.ndarray) -> np.ndarray:
