@@ -26,6 +26,7 @@ from . import checkpoint as ckptmod
 from . import frame_norm
 from .content import ContentSet, sample_batch, sample_frame
 from .distributed import World
+from .errors import CompressError
 from .losses import gram
 from .lossnet import STYLE_LAYERS
 from .recipe import LossWeights, Recipe
@@ -230,6 +231,13 @@ def distill(net: nn.Module, cache: dict[str, np.ndarray], recipe: Recipe, steps:
                 g["lr"] = lr_at(step)
             opt.zero_grad(set_to_none=True)
             total.backward()
+            grad_norm = torch.nn.utils.clip_grad_norm_(net.parameters(), math.inf)
+            if not (math.isfinite(logs["total"]) and math.isfinite(float(grad_norm))):
+                # stop before the update: the weights and the last checkpoint stay finite
+                raise CompressError(f"{desc}: step {step}: the loss or its gradient is not finite "
+                                    f"(loss {logs['total']:.4g}, gradient norm {float(grad_norm):.4g}); "
+                                    f"the checkpoint at step {step - step % recipe.checkpoint_every} is kept; "
+                                    "rerun with a lower lr to resume from it")
             opt.step()
             step += 1
             if bar:

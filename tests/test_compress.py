@@ -602,3 +602,40 @@ def test_frame_stats_are_what_each_context_block_pools_on_the_whole_frame():
         assert (net(crop, frame=frame) - net(crop)).abs().max() > 1e-3
         with pytest.raises(ValueError):  # one statistic per context block, no fewer
             net(crop, stats=stats[:1])
+
+
+def test_distillation_stops_before_a_non_finite_step_and_keeps_its_checkpoint(tmp_path, monkeypatch):
+    """A run whose loss turns non-finite (here injected at the sixth step) must stop with an
+    error naming the step, before the update that would poison the weights, so the checkpoint
+    on disk stays finite and a rerun with a lower learning rate resumes from it (common
+    practice for training loops, no source)."""
+    from limner.compress import distill as distill_mod
+    from limner.compress.distill import distill
+    from limner.compress.errors import CompressError
+    from limner.compress.lossnet import build_loss_net
+    from limner.compress.recipe import LossWeights, Recipe
+
+    rng = np.random.default_rng(0)
+    cache = {"inputs": rng.integers(0, 256, (16, 64, 64, 3), dtype=np.uint8),
+             "targets": rng.integers(0, 256, (16, 64, 64, 3), dtype=np.uint8)}
+    recipe = Recipe(crop=64, batch=2, checkpoint_every=2, target_frame="",
+                    loss=LossWeights(feature=0.0, gram=0.0))
+    lossnet, _ = build_loss_net("random", seed=0)
+    terms, calls = distill_mod.DistillLoss.terms, []
+
+    def poisoned(self, *args, **kwargs):
+        out = terms(self, *args, **kwargs)
+        calls.append(1)
+        if len(calls) == 6:
+            out["pixel_l1"] = out["pixel_l1"] * float("nan")
+        return out
+
+    monkeypatch.setattr(distill_mod.DistillLoss, "terms", poisoned)
+    torch.manual_seed(0)
+    net = build("student", **asdict(PRESETS["s-tiny"]))
+    with pytest.raises(CompressError, match=r"step 5: the loss or its gradient is not finite.*step 4 is kept"):
+        distill(net, cache, recipe, 20, 1e-3, lossnet, tmp_path, "diverging", {"name": "d"})
+    saved = ck.load(tmp_path / "checkpoint.pt")
+    assert saved.train_state["step"] == 4
+    assert all(torch.isfinite(v).all() for v in saved.state_dict.values())
+    assert all(torch.isfinite(p).all() for p in net.parameters())   # no poisoned update either
