@@ -268,11 +268,10 @@ def _turn_hue(img: np.ndarray, deg: float) -> np.ndarray:
     return cv2.cvtColor(hsv, cv2.COLOR_HSV2BGR)
 
 
-def _draw(cs: ContentSet, rng: np.random.Generator, by_source: bool) -> np.ndarray:
-    """One item's image: uniform over items, or over sources and then their items."""
-    if not by_source:
+def _draw(cs: ContentSet, rng: np.random.Generator, groups: list[list[int]] | None) -> np.ndarray:
+    """One item's image: uniform over items, or (given `groups`) over sources and then their items."""
+    if groups is None:
         return cs.items[int(rng.integers(len(cs.items)))].image
-    groups = cs.groups()
     g = groups[int(rng.integers(len(groups)))]
     return cs.items[g[int(rng.integers(len(g)))]].image
 
@@ -285,9 +284,10 @@ def sample_frame(cs: ContentSet, rng: np.random.Generator, width: int, height: i
     make the frame of two sources split along a random line, and draw by source rather than
     by item -> (height, width, 3) uint8 BGR."""
     v = variety or FrameVariety()
-    frame = _window(_draw(cs, rng, v.by_source), rng, width, height, v)
+    groups = cs.groups() if v.by_source else None
+    frame = _window(_draw(cs, rng, groups), rng, width, height, v)
     if v.mosaic and rng.random() < v.mosaic:
-        other = _window(_draw(cs, rng, v.by_source), rng, width, height, v)
+        other = _window(_draw(cs, rng, groups), rng, width, height, v)
         if rng.random() < 0.5:
             x = 8 * int(rng.integers(-(-width // 32), 3 * width // 32 + 1))    # 25-75% across
             frame[:, x:] = other[:, x:]

@@ -201,7 +201,7 @@ def distill(net: nn.Module, cache: dict[str, np.ndarray], recipe: Recipe, steps:
             "step": s, "optimizer": opt.state_dict(), "loss_scale": dict(loss.scale),
             "seconds": seconds_before + time.monotonic() - t0, "last": dict(logs)}), ckpt_path)
 
-    with_frames = getattr(net, "context_at", -1) >= 0 and "frames" in cache
+    with_frames = bool(getattr(net, "context_points", None)) and "frames" in cache
     # instance-normalised nets (a pruned teacher) normalise crops with their frame's statistics;
     # a batch then holds crops of one frame, so one whole frame runs per step
     norm_frames = frame_norm.has_norms(net) and "frames" in cache

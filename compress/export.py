@@ -3,13 +3,30 @@ from __future__ import annotations
 
 from pathlib import Path
 
+import numpy as np
 import onnx
+import torch
 from limner.runtime.metadata import ModelMeta
 from limner.runtime.outputs import atomic_write_bytes
 from torch import nn
 
 from . import checkpoint as ckptmod
 from .onnx_writer import to_onnx
+
+
+def frame_tensor(bgr: np.ndarray) -> torch.Tensor:
+    """(H, W, 3) uint8 BGR -> (1, 3, H, W) float RGB in [0, 1], what the graph's head computes"""
+    return torch.from_numpy(np.ascontiguousarray(bgr[:, :, ::-1])).permute(2, 0, 1)[None].float() / 255
+
+
+def stylise(net: nn.Module, bgr: np.ndarray, **inputs) -> np.ndarray:
+    """What the exported model gives for one frame, computed by the torch net (tools and
+    reports that score a checkpoint without exporting it); `inputs` go to forward().
+    bgr: (H, W, 3) uint8 BGR -> (H, W, 3) uint8 BGR, rounded as the graph's tail rounds"""
+    x = frame_tensor(bgr)
+    with torch.no_grad():
+        y = net(x, **inputs)[0].permute(1, 2, 0).numpy()[:, :, ::-1]     # (H, W, 3) BGR in [0, 1]
+    return np.ascontiguousarray(np.floor(y * 255 + 0.5).clip(0, 255).astype(np.uint8))
 
 
 def save_onnx(model: onnx.ModelProto, out: Path) -> Path:

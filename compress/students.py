@@ -130,7 +130,6 @@ class Student(nn.Module):
         layers += [conv(3 * d2, c1, kernel_in), _relu(),
                    conv(c1, c2, 3, 2), _relu(),
                    conv(c2, c3, 3, 2), _relu()]
-        self.context_at = len(layers) if context else -1
         if context:
             layers.append(FrameFiLM(c3, context))
         for h in hidden:

@@ -32,6 +32,7 @@ from limner.bench.color import scielab_delta_e
 from limner.bench.metrics import ms_ssim
 from limner.runtime.images import cover_crop, list_images, read_image
 from limner.compress.distill import distill
+from limner.compress.export import stylise
 from limner.compress.lossnet import build_loss_net
 from limner.compress.warm_start import init_from
 from limner.compress.recipe import Recipe
@@ -41,13 +42,6 @@ from limner.runtime.model import load_model
 
 TERMS = ("pixel_l1", "ms_ssim", "feature", "gram", "color_stats", "noise_consistency")
 PPD = 19.2  # configs/bench/default.toml: 1.2 m wide screen at 2 m, 640 px wide
-
-
-def stylise(net: torch.nn.Module, bgr: np.ndarray) -> np.ndarray:
-    x = torch.from_numpy(np.ascontiguousarray(bgr[:, :, ::-1])).permute(2, 0, 1)[None].float() / 255
-    with torch.no_grad():
-        y = net(x)[0].permute(1, 2, 0).numpy()[:, :, ::-1]
-    return np.ascontiguousarray(np.floor(y * 255 + 0.5).clip(0, 255).astype(np.uint8))
 
 
 def _weights(variant: str, base):

@@ -19,32 +19,21 @@ import torch
 
 from limner.bench.metrics import ms_ssim
 from limner.compress import checkpoint as ckptmod
+from limner.compress.export import frame_tensor, stylise
 from limner.runtime.images import cover_crop, list_images, read_image
 from limner.runtime.model import load_model
 
 
-def _rgb(bgr: np.ndarray) -> torch.Tensor:
-    # (H, W, 3) uint8 BGR -> (1, 3, H, W) float RGB in [0, 1]
-    return torch.from_numpy(np.ascontiguousarray(bgr[:, :, ::-1])).permute(2, 0, 1)[None].float() / 255
-
-
-def _bgr(y: torch.Tensor) -> np.ndarray:
-    # (1, 3, H, W) RGB in [0, 1] -> (H, W, 3) uint8 BGR, rounded as the exported graph does
-    return np.floor(y[0].permute(1, 2, 0).numpy()[:, :, ::-1] * 255 + 0.5).clip(0, 255).astype(np.uint8)
-
-
 def report(net: torch.nn.Module, photos: list[np.ndarray], targets: list[np.ndarray]) -> dict:
-    x = [_rgb(p) for p in photos]
-    stats = [net.frame_stats(v) for v in x]
+    stats = [net.frame_stats(frame_tensor(p)) for p in photos]
     mean = tuple(torch.stack(s).mean(0) for s in zip(*stats))
     ways = {"own": lambda k: stats[k], "mean of all": lambda k: mean,
             "next photo's": lambda k: stats[(k + 1) % len(stats)]}
     out = {}
-    with torch.no_grad():
-        for name, pick in ways.items():
-            scores = [ms_ssim(_bgr(net(x[k], stats=pick(k))), targets[k]) for k in range(len(x))]
-            out[name] = {"ms_ssim": round(float(np.mean(scores)), 4),
-                         "per_photo": [round(float(s), 4) for s in scores]}
+    for name, pick in ways.items():
+        scores = [ms_ssim(stylise(net, photos[k], stats=pick(k)), targets[k]) for k in range(len(photos))]
+        out[name] = {"ms_ssim": round(float(np.mean(scores)), 4),
+                     "per_photo": [round(float(s), 4) for s in scores]}
     return out
 
 
