@@ -26,7 +26,6 @@ import tempfile
 from pathlib import Path
 
 import numpy as np
-import torch
 
 from limner.bench.color import scielab_delta_e
 from limner.bench.metrics import ms_ssim
