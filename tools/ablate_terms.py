@@ -5,7 +5,9 @@ on the same teacher-target cache with the recipe's losses, one term switched off
 only one left, or some weights set: `with:gram=0,lowpass_l1=2` is the recipe's [loss]
 with those two changed), and is then scored against the teacher on held-out photos at 640x360
 with the bench's own metrics (MS-SSIM, S-CIELAB CIEDE2000 at the bench's default
-viewing geometry). Results go to a CSV and to stdout as a table.
+viewing geometry) and, with `--style`, the bench's style share (Gram distance to the
+style image over the photo's, on the trained VGG-16 trunk; the teacher's own share is the
+first row). Results go to a CSV and to stdout as a table.
 
 Usage:
   python tools/ablate_terms.py --recipe configs/compress/ember-hed.toml \\
@@ -13,7 +15,7 @@ Usage:
       --init work/ember-ladder/students/tiny4-ctx.pt --student tiny4-ctx \\
       --teacher runtime/assets/models/ember-teacher.onnx \\
       --content runtime/assets/photos/heldout \\
-      --steps 300 -o runs/ablation
+      --steps 300 --style ember -o runs/ablation
 
 (the cache is the one `limner compress` made for the ladder: rebuilt by rerunning it)
 """
@@ -29,6 +31,7 @@ import numpy as np
 
 from limner.bench.color import scielab_delta_e
 from limner.bench.metrics import ms_ssim
+from limner.bench.style_features import open_for_style
 from limner.runtime.images import cover_crop, list_images, read_image
 from limner.compress.distill import distill
 from limner.compress.export import stylise
@@ -79,6 +82,8 @@ def main() -> None:
                     help="'start' (the --init student, untrained further), 'all', 'no:TERM' (all but "
                          "TERM), 'only:TERM' (TERM alone) or 'with:NAME=W,...' (the recipe's [loss] "
                          "with those weights set)")
+    ap.add_argument("--style", default="", help="a bundled style name or style image: also score "
+                    "each variant's style share against it (as `limner bench` does)")
     ap.add_argument("-o", "--out", type=Path, required=True)
     a = ap.parse_args()
 
@@ -95,8 +100,18 @@ def main() -> None:
     teacher = load_model(a.teacher)
     photos = {p.stem: cover_crop(read_image(p), 640, 360) for p in list_images(a.content)}
     targets = {k: teacher.run(v) for k, v in photos.items()}
+    scorer = None
+    if a.style:
+        scorer, why = open_for_style(a.style)
+        if scorer is None:
+            raise SystemExit(f"--style {a.style}: {why}")
+        photo_feats = {k: scorer.features(v) for k, v in photos.items()}
+    def style_share(outs: dict[str, np.ndarray]) -> float:
+        return round(float(np.mean([scorer.score(outs[k], photos[k], photo_feats[k])["style_share"]
+                                    for k in photos])), 4)
     a.out.mkdir(parents=True, exist_ok=True)
     rows = []
+    teacher_share = style_share(targets) if scorer else None
     lr = spec.lr if a.lr is None else a.lr
     for variant in a.variants:
         net = init_from(a.init, build("student", **spec.knobs), spec.name)
@@ -108,21 +123,25 @@ def main() -> None:
             steps, seconds = a.steps, info["seconds"]
         net.eval()
         row = {"variant": variant, "steps": steps, "lr": lr, "seconds": round(seconds, 1)}
-        for name, img in photos.items():
-            out = stylise(net, img)
+        outs = {name: stylise(net, img) for name, img in photos.items()}
+        for name, out in outs.items():
             row[f"ms_ssim_{name}"] = round(ms_ssim(out, targets[name]), 4)
             row[f"delta_e_{name}"] = round(scielab_delta_e(out, targets[name], PPD), 3)
         row["ms_ssim_mean"] = round(float(np.mean([row[f"ms_ssim_{n}"] for n in photos])), 4)
         row["delta_e_mean"] = round(float(np.mean([row[f"delta_e_{n}"] for n in photos])), 3)
+        if scorer:
+            row["style_share"], row["teacher_style_share"] = style_share(outs), teacher_share
         rows.append(row)
         print(row, flush=True)
         with (a.out / "ablation.csv").open("w", newline="") as f:
             w = csv.DictWriter(f, fieldnames=list(rows[0]))
             w.writeheader()
             w.writerows(rows)
-    print("\n| variant | MS-SSIM mean | S-CIELAB dE00 mean |\n|---|---|---|")
+    share = f" style share (teacher {teacher_share:.3f}) |" if scorer else ""
+    print(f"\n| variant | MS-SSIM mean | S-CIELAB dE00 mean |{share}\n|---|---|---|{'---|' if scorer else ''}")
     for row in rows:
-        print(f"| {row['variant']} | {row['ms_ssim_mean']:.3f} | {row['delta_e_mean']:.2f} |")
+        cell = f" {row['style_share']:.3f} |" if scorer else ""
+        print(f"| {row['variant']} | {row['ms_ssim_mean']:.3f} | {row['delta_e_mean']:.2f} |{cell}")
 
 
 if __name__ == "__main__":
