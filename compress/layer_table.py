@@ -168,7 +168,14 @@ def _emit_unshuffle(g: Graph, m: nn.PixelUnshuffle, x: str, fixes: Fixes) -> str
 
 def _emit_film(g: Graph, m: FrameFiLM, x: str, fixes: Fixes) -> str:
     stats = g.op("GlobalAveragePool", [x], "frame_mean")
-    t = emit(g, nn.Sequential(m.squeeze, nn.ReLU()), stats, fixes)
+    t = emit(g, m.squeeze, stats, fixes)
+    if m.spread is not None:  # sqrt(max(E[x^2] - E[x]^2, 0) + eps) - sqrt(eps), as FrameFiLM.pool
+        sq = g.op("GlobalAveragePool", [g.op("Mul", [x, x], "square")], "frame_square")
+        var = g.op("Relu", [g.op("Sub", [sq, g.op("Mul", [stats, stats], "mean_square")], "var")], "var")
+        root = g.op("Sqrt", [g.op("Add", [var, g.const("eps", np.array(m.EPS, np.float32))], "var_eps")])
+        std = g.op("Sub", [root, g.const("root_eps", np.array(m.EPS ** 0.5, np.float32))], "frame_std")
+        t = g.op("Add", [t, emit(g, m.spread, std, fixes)], "spread_add")
+    t = g.op("Relu", [t], "relu")
     one_plus = {id(m.gamma): lambda w, b: (w, b + np.float32(1.0))}  # 1 + gamma, in the bias
     scale = emit(g, m.gamma, t, one_plus)
     return g.op("Add", [g.op("Mul", [x, scale], "film_scale"), emit(g, m.beta, t, fixes)], "film_shift")

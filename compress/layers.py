@@ -55,22 +55,46 @@ class FrameFiLM(nn.Module):
     per-channel scale and shift, and applies them: x * (1 + gamma) + beta (feature-wise
     linear modulation). The output convolutions start at zero, so the block starts as
     the identity and a student trained without it can be warm-started.
+    With `spread`, the block also pools each channel's standard deviation over the frame,
+    the other statistic an instance normalisation divides by; its own 1x1 conv (`spread`,
+    no bias, starting at zero) adds into the squeeze, so a block without it warm-starts one
+    with it unchanged, and pruning the residual stream slices it as it does `squeeze`.
     In training, `stats` may come from the whole frame while `x` is a crop of it.
     """
 
-    def __init__(self, channels: int, hidden: int) -> None:
+    # sqrt(var + EPS) - sqrt(EPS): a finite gradient at zero variance, and exactly 0 for a
+    # constant channel, so a pruned (all-zero) channel adds nothing; the ONNX writer uses the same
+    EPS = 1e-5
+
+    def __init__(self, channels: int, hidden: int, spread: bool = False) -> None:
         super().__init__()
         self.squeeze = nn.Conv2d(channels, hidden, 1)
+        self.spread = nn.Conv2d(channels, hidden, 1, bias=False) if spread else None
         self.gamma = nn.Conv2d(hidden, channels, 1)
         self.beta = nn.Conv2d(hidden, channels, 1)
-        for m in (self.gamma, self.beta):
-            nn.init.zeros_(m.weight)
-            nn.init.zeros_(m.bias)
+        for m in (self.gamma, self.beta, self.spread):
+            if m is not None:
+                nn.init.zeros_(m.weight)
+                if m.bias is not None:
+                    nn.init.zeros_(m.bias)
+
+    def pool(self, x: torch.Tensor) -> torch.Tensor:
+        # x: (N, C, H, W) -> (N, C, 1, 1) means, or with spread (N, 2C, 1, 1): means, then
+        #   standard deviations sqrt(max(E[x^2] - E[x]^2, 0) + EPS) - sqrt(EPS), as the ONNX graph
+        mean = x.mean(dim=(2, 3), keepdim=True)
+        if self.spread is None:
+            return mean
+        var = ((x * x).mean(dim=(2, 3), keepdim=True) - mean * mean).clamp_min(0)
+        return torch.cat([mean, torch.sqrt(var + self.EPS) - self.EPS ** 0.5], dim=1)
 
     def forward(self, x: torch.Tensor, stats: torch.Tensor | None = None) -> torch.Tensor:
-        # x: (N, C, H, W); stats: (N, C, 1, 1) frame means of x's features (default: x's own)
+        # x: (N, C, H, W); stats: pool() of the frame x comes from (default: of x itself)
         #   -> (N, C, H, W)
         if stats is None:
-            stats = x.mean(dim=(2, 3), keepdim=True)
-        t = F.relu(self.squeeze(stats))             # (N, hidden, 1, 1)
+            stats = self.pool(x)
+        c = x.shape[1]
+        t = self.squeeze(stats[:, :c])              # (N, hidden, 1, 1)
+        if self.spread is not None:
+            t = t + self.spread(stats[:, c:])
+        t = F.relu(t)
         return x * (1 + self.gamma(t)) + self.beta(t)

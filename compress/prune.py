@@ -107,7 +107,8 @@ def prune_to(net: nn.Module, keep: dict[str, torch.Tensor]) -> nn.Module:
             if n.weight.shape != w.shape:
                 raise RuntimeError(f"pruning produced {tuple(w.shape)} for a {tuple(n.weight.shape)} layer")
             n.weight.copy_(w)
-            n.bias.copy_(b)
+            if b is not None:  # a bias-free conv (FrameFiLM.spread) stays bias-free
+                n.bias.copy_(b)
     return new.eval()
 
 

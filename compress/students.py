@@ -14,7 +14,9 @@ normalisation layers. Knobs:
 - context: frame-level context (layers.FrameFiLM) after the encoder, so the student can
   follow the teacher's whole-frame normalisation,
 - context_blocks: with context, one more frame-context block after every residual block
-  (the teacher normalises by whole-frame statistics in every block, not only once).
+  (the teacher normalises by whole-frame statistics in every block, not only once),
+- context_spread: with context, every frame-context block also pools each channel's standard
+  deviation over the frame, not only its mean (instance normalisation uses both).
 
 `Student` itself takes explicit channel counts, so a pruned network (any channel
 counts) is rebuilt from its checkpoint without guessing; `student_args` turns the
@@ -46,6 +48,7 @@ class StudentKnobs:
     upsample: str = "resize"
     context: bool = False
     context_blocks: bool = False
+    context_spread: bool = False
 
     def __post_init__(self) -> None:
         if not 0.05 <= self.width <= 2.0:
@@ -64,6 +67,8 @@ class StudentKnobs:
             raise InputError(f"upsample={self.upsample!r}: must be one of {UPSAMPLE_MODES}")
         if self.context_blocks and not self.context:
             raise InputError("context_blocks=true needs context=true")
+        if self.context_spread and not self.context:
+            raise InputError("context_spread=true needs context=true")
 
 
 def _round_channels(c: float) -> int:
@@ -85,6 +90,7 @@ def student_args(knobs: StudentKnobs) -> dict:
         "upsample": knobs.upsample,
         "context": max(8, c3 // 2) if knobs.context else 0,
         "context_blocks": knobs.context_blocks,
+        "context_spread": knobs.context_spread,
         "knobs": asdict(knobs),
     }
 
@@ -112,7 +118,8 @@ class Student(nn.Module):
     def __init__(self, channels: list[int], hidden: list[int], up_channels: list[int],
                  kernel_in: int = 5, kernel_out: int = 5, depthwise: bool = False,
                  downscale: int = 1, upsample: str = "resize", context: int = 0,
-                 context_blocks: bool = False, knobs: dict | None = None) -> None:
+                 context_blocks: bool = False, context_spread: bool = False,
+                 knobs: dict | None = None) -> None:
         super().__init__()
         c1, c2, c3 = channels
         u1, u2 = up_channels
@@ -121,6 +128,7 @@ class Student(nn.Module):
                            "kernel_out": kernel_out, "depthwise": depthwise,
                            "downscale": downscale, "upsample": upsample,
                            "context": context, "context_blocks": context_blocks,
+                           "context_spread": context_spread,
                            "knobs": dict(knobs or {})}
         self.size_multiple = 4 * downscale
         d2 = downscale * downscale
@@ -131,11 +139,11 @@ class Student(nn.Module):
                    conv(c1, c2, 3, 2), _relu(),
                    conv(c2, c3, 3, 2), _relu()]
         if context:
-            layers.append(FrameFiLM(c3, context))
+            layers.append(FrameFiLM(c3, context, context_spread))
         for h in hidden:
             layers.append(_block(c3, h, depthwise))
             if context and context_blocks:
-                layers.append(FrameFiLM(c3, context))
+                layers.append(FrameFiLM(c3, context, context_spread))
         self.context_points = [i for i, m in enumerate(layers) if isinstance(m, FrameFiLM)]
         layers += _up(c3, u1, upsample) + _up(u1, u2, upsample)
         layers.append(conv(u2, 3 * d2, kernel_out))
@@ -148,13 +156,14 @@ class Student(nn.Module):
         """What each frame-context block pools over whole frames, without gradient
         (training only): the frames run up to the last such block, each block modulated
         by its own pooled input, as on a whole frame at run time.
-        frame: (N, 3, Hf, Wf) RGB in [0, 1] -> one (N, c3, 1, 1) per context block"""
+        frame: (N, 3, Hf, Wf) RGB in [0, 1] -> one (N, c3, 1, 1) per context block
+        ((N, 2 c3, 1, 1) with context_spread: FrameFiLM.pool)"""
         out = []
         with torch.no_grad():
             h, start = frame, 0
             for k in self.context_points:
                 h = self.net[start:k](h)                # (N, c3, Hf/s, Wf/s)
-                out.append(h.mean(dim=(2, 3), keepdim=True))
+                out.append(self.net[k].pool(h))
                 h, start = self.net[k](h, out[-1]), k + 1
         return tuple(out)
 
@@ -208,7 +217,7 @@ def student_spaces(net: Student) -> dict[str, ChannelSpace]:
           "u1": ChannelSpace(a["up_channels"][0], [(up1, shuffle)], [up2], []),
           "u2": ChannelSpace(a["up_channels"][1], [(up2, shuffle)], [conv_out], [])}
     for f in films:  # frame context reads and modulates the residual stream
-        sp["c3"].consumers.append(f.squeeze)
+        sp["c3"].consumers += [f.squeeze] + ([f.spread] if f.spread is not None else [])
         sp["c3"].producers += [(f.gamma, 1), (f.beta, 1)]
     for i, b in enumerate(blocks):
         if a["depthwise"]:
@@ -232,4 +241,5 @@ def student_shrunk(net: Student, n: dict[str, int]) -> Student:
     return Student(channels=[n["c1"], n["c2"], n["c3"]], hidden=hidden, up_channels=[n["u1"], n["u2"]],
                    kernel_in=a["kernel_in"], kernel_out=a["kernel_out"], depthwise=a["depthwise"],
                    downscale=a["downscale"], upsample=a["upsample"], context=a.get("context", 0),
-                   context_blocks=a.get("context_blocks", False), knobs=a["knobs"])
+                   context_blocks=a.get("context_blocks", False),
+                   context_spread=a.get("context_spread", False), knobs=a["knobs"])

@@ -37,21 +37,23 @@ def init_from(path: str, fresh: torch.nn.Module, name: str) -> torch.nn.Module:
     narrower one did (function-preserving widening, as in Net2Net, Chen et al. 2016, with
     zero-initialised consumers instead of copied units) and training uses the new
     channels from there. Frame-context blocks the old student lacks (after the encoder, or
-    after each residual block with `context_blocks`) start as the identity."""
+    after each residual block with `context_blocks`) start as the identity, and so do the
+    standard-deviation inputs (`context_spread`) of blocks the old student has without them."""
     try:
         old = ckptmod.load(Path(path)).model()
     except ckptmod.CheckpointError as e:
         raise CompressError(f"student {name}: init: {e}") from None
     widths = ("channels", "up_channels", "hidden", "context")
     def shape(args: dict) -> dict:
-        return {k: v for k, v in args.items() if k not in ("knobs", "downscale", "context_blocks") + widths}
+        return {k: v for k, v in args.items() if k not in ("knobs", "downscale", "context_blocks", "context_spread") + widths}
     oa, fa = old.model_args, fresh.model_args
     old_hidden, new_hidden = list(oa["hidden"]), list(fa["hidden"])
     fits = (len(oa["channels"]) == len(fa["channels"]) and len(old_hidden) <= len(new_hidden)
             and all(o <= f for k in ("channels", "up_channels")
                     for o, f in zip(oa[k], fa[k], strict=True))
             and all(o <= f for o, f in zip(old_hidden, new_hidden))
-            and (not oa.get("context") or 0 < oa["context"] <= fa.get("context", 0)))
+            and (not oa.get("context") or 0 < oa["context"] <= fa.get("context", 0))
+            and (not oa.get("context_spread") or fa.get("context_spread", False)))
     widened = any(oa[k] != fa[k] for k in ("channels", "up_channels")) or \
         new_hidden[:len(old_hidden)] != old_hidden
     if shape(oa) != shape(fa) or not fits or (widened and fa["upsample"] != "resize"):
@@ -70,6 +72,8 @@ def init_from(path: str, fresh: torch.nn.Module, name: str) -> torch.nn.Module:
             last.weight.zero_()
             last.bias.zero_()
     skip = tuple(f"net.{i}." for i in extra + films)
+    if fa.get("context_spread") and not oa.get("context_spread"):  # zero at construction
+        skip += tuple(f"net.{i}.spread." for i in _film_places(fresh))
     fresh_sd = fresh.state_dict()
     targets = [k for k in fresh_sd if not k.startswith(skip)]
     old_sd = old.state_dict()

@@ -62,7 +62,9 @@ models = ["a", "a-p30"]
 
 PRUNE_SHAPES = {k: asdict(v) for k, v in PRESETS.items()} | {
     "s-half-context": asdict(PRESETS["s-half"]) | {"context": True},
-    "s-half-context-blocks": asdict(PRESETS["s-half"]) | {"context": True, "context_blocks": True}}
+    "s-half-context-blocks": asdict(PRESETS["s-half"]) | {"context": True, "context_blocks": True},
+    "s-half-context-spread": asdict(PRESETS["s-half"]) | {"context": True, "context_blocks": True,
+                                                          "context_spread": True}}
 
 
 @pytest.mark.parametrize("name", list(PRUNE_SHAPES))
@@ -77,6 +79,8 @@ def test_pruning_zero_filters_leaves_output_unchanged(name):
             for c in (m.gamma, m.beta):
                 c.weight.data.normal_(0, 0.05)
                 c.bias.data.normal_(0, 0.05)
+            if m.spread is not None:  # reads the standard deviations of dropped channels too
+                m.spread.weight.data.normal_(0, 0.5)
     keep = {}
     with torch.no_grad():
         for space, s in spaces(net).items():
@@ -305,6 +309,17 @@ def test_student_init_checkpoint_must_match_knobs(tmp_path):
     assert len(blocks.context_points) == 1 + knobs["blocks"]
     with torch.no_grad():
         assert torch.equal(blocks(x), ctx(x))
+    # and one that also pools standard deviations from one that pools means only (the
+    # spread convs start at zero), but not the other way round: that would drop weights
+    ck.save(ck.from_model(blocks, {"name": "tiny-cb"}), tmp_path / "tiny-cb.pt")
+    cb_knobs = knobs | {"context": True, "context_blocks": True}
+    spread = init_from(str(tmp_path / "tiny-cb.pt"), build("student", **cb_knobs | {"context_spread": True}),
+                       "tiny-sp").eval()
+    with torch.no_grad():
+        assert torch.equal(spread(x), blocks(x))
+    ck.save(ck.from_model(spread, {"name": "tiny-sp"}), tmp_path / "tiny-sp.pt")
+    with pytest.raises(CompressError, match="different architecture"):
+        init_from(str(tmp_path / "tiny-sp.pt"), build("student", **cb_knobs), "tiny-cb2")
     # another downscale: the body carries over, the first and last convs start fresh
     other = 4 if knobs["downscale"] != 4 else 2
     fresh = build("student", **knobs | {"downscale": other})
@@ -581,20 +596,24 @@ def test_a_family_registered_once_is_built_configured_and_pruned_by_name(monkeyp
     assert abs(1 - conv_weight_count(small) / conv_weight_count(net) - 0.5) <= 0.05
 
 
-def test_frame_stats_are_what_each_context_block_pools_on_the_whole_frame():
+@pytest.mark.parametrize("spread", [False, True])
+def test_frame_stats_are_what_each_context_block_pools_on_the_whole_frame(spread):
     """Training hands a crop its whole frame's statistics (Student.frame_stats); run on the
     whole frame itself with those statistics, the student must give exactly what it gives
     pooling for itself, as the exported model does at run time, at every context block."""
     torch.manual_seed(0)
-    net = build("student", **asdict(PRESETS["s-half"]) | {"context": True, "context_blocks": True}).eval()
+    net = build("student", **asdict(PRESETS["s-half"]) | {"context": True, "context_blocks": True,
+                                                           "context_spread": spread}).eval()
     for m in net.modules():  # context blocks start as the identity: give them an effect
         if isinstance(m, FrameFiLM):
-            for c in (m.gamma, m.beta):
+            for c in (m.gamma, m.beta) + ((m.spread,) if spread else ()):
                 c.weight.data.normal_(0, 0.5)
     frame = torch.rand(2, 3, 64, 96)
     frame[:, :, :, 48:] += 2.0               # a bright right half: frame and crop statistics differ
     stats = net.frame_stats(frame)
     assert len(stats) == len(net.context_points) == 1 + len(net.model_args["hidden"])
+    c3 = net.model_args["channels"][2]
+    assert all(s.shape == (2, 2 * c3 if spread else c3, 1, 1) for s in stats)
     with torch.no_grad():
         assert torch.allclose(net(frame, stats=stats), net(frame), atol=1e-6)
         crop = frame[:, :, 16:48, 0:32]

@@ -18,8 +18,10 @@ from limner.runtime.model import load_model
 
 SHAPES = ([("teacher", {})] + [("student", asdict(k)) for k in PRESETS.values()]
           + [("student", asdict(PRESETS["s-half"]) | {"context": True}),
-             ("student", asdict(PRESETS["s-half"]) | {"context": True, "context_blocks": True})])
-IDS = ["teacher"] + list(PRESETS) + ["s-half-context", "s-half-context-blocks"]
+             ("student", asdict(PRESETS["s-half"]) | {"context": True, "context_blocks": True}),
+             ("student", asdict(PRESETS["s-half"]) | {"context": True, "context_blocks": True,
+                                                      "context_spread": True})])
+IDS = ["teacher"] + list(PRESETS) + ["s-half-context", "s-half-context-blocks", "s-half-context-spread"]
 
 
 def _torch_reference(net: torch.nn.Module, bgr: np.ndarray) -> np.ndarray:
@@ -41,6 +43,8 @@ def test_onnxruntime_matches_torch_on_photos(family, knobs, photos, tmp_path):
             for c in (m.gamma, m.beta):
                 c.weight.data.normal_(0, 0.05)
                 c.bias.data.normal_(0, 0.05)
+            if m.spread is not None:
+                m.spread.weight.data.normal_(0, 0.5)
     ck.save(ck.from_model(net, {"style": "t", "loss_network": "none"}), tmp_path / "n.pt")
     model = load_model(export(tmp_path / "n.pt", tmp_path / "n.onnx"), threads=1)
     mult = model.size_multiple
