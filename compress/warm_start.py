@@ -45,7 +45,8 @@ def init_from(path: str, fresh: torch.nn.Module, name: str) -> torch.nn.Module:
         raise CompressError(f"student {name}: init: {e}") from None
     widths = ("channels", "up_channels", "hidden", "context")
     def shape(args: dict) -> dict:
-        return {k: v for k, v in args.items() if k not in ("knobs", "downscale", "context_blocks", "context_spread") + widths}
+        free = ("knobs", "downscale", "context_blocks", "context_spread") + widths
+        return {k: v for k, v in args.items() if k not in free}
     oa, fa = old.model_args, fresh.model_args
     old_hidden, new_hidden = list(oa["hidden"]), list(fa["hidden"])
     fits = (len(oa["channels"]) == len(fa["channels"]) and len(old_hidden) <= len(new_hidden)

@@ -6,8 +6,8 @@ only one left, or some weights set: `with:gram=0,lowpass_l1=2` is the recipe's [
 with those two changed), and is then scored against the teacher on held-out photos at 640x360
 with the bench's own metrics (MS-SSIM, S-CIELAB CIEDE2000 at the bench's default
 viewing geometry) and, with `--style`, the bench's style share (Gram distance to the
-style image over the photo's, on the trained VGG-16 trunk; the teacher's own share is the
-first row). Results go to a CSV and to stdout as a table.
+style image over the photo's, on the trained VGG-16 trunk; the teacher's own share beside
+it in every row and in the table's header). Results go to a CSV and to stdout as a table.
 
 Usage:
   python tools/ablate_terms.py --recipe configs/compress/ember-hed.toml \\
