@@ -31,7 +31,7 @@ import numpy as np
 
 from limner.bench.color import scielab_delta_e
 from limner.bench.metrics import ms_ssim
-from limner.bench.style_features import open_for_style
+from limner.bench.style_features import open_for_style, score_set
 from limner.runtime.images import cover_crop, list_images, read_image
 from limner.compress.distill import distill
 from limner.compress.export import stylise
@@ -105,10 +105,10 @@ def main() -> None:
         scorer, why = open_for_style(a.style)
         if scorer is None:
             raise SystemExit(f"--style {a.style}: {why}")
-        photo_feats = {k: scorer.features(v) for k, v in photos.items()}
-    def style_share(outs: dict[str, np.ndarray]) -> float:
-        return round(float(np.mean([scorer.score(outs[k], photos[k], photo_feats[k])["style_share"]
-                                    for k in photos])), 4)
+        photo_feats = [scorer.features(v) for v in photos.values()]
+    def style_share(outs: dict[str, np.ndarray]) -> float:  # the bench's own mean (bench/run.py)
+        score = score_set(scorer, [outs[k] for k in photos], list(photos.values()), photo_feats)
+        return round(score["style_share"]["mean"], 4)
     a.out.mkdir(parents=True, exist_ok=True)
     rows = []
     teacher_share = style_share(targets) if scorer else None
